@@ -1,0 +1,71 @@
+"""Small shared validators whose messages name the field the user typed."""
+
+from __future__ import annotations
+
+import math
+import numbers
+
+import numpy as np
+
+from .errors import MapError, MapSettingsError
+
+
+def real_number(value: object, field: str, error: type[MapError], where: str = "") -> float:
+    """Return ``value`` as a finite float, refusing bools, strings and NaN/inf.
+
+    Parameters
+    ----------
+    value : object
+        The value to check.
+    field : str
+        Name of the field as the user typed it (``cell_size_m``).
+    error : type of MapError
+        Error class to raise.
+    where : str
+        Prefix naming the file or message, e.g. ``"map.toml: "``.
+
+    Raises
+    ------
+    MapError
+        Of class ``error``, when ``value`` is not a finite real number.
+    """
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
+        raise error(f"{where}{field} must be a number, got {type(value).__name__} {value!r}")
+    number = float(value)
+    if not math.isfinite(number):
+        raise error(f"{where}{field} must be a finite number, got {value!r}")
+    return number
+
+
+def positive_number(value: object, field: str, error: type[MapError], where: str = "") -> float:
+    """Return ``value`` as a finite float > 0 (see :func:`real_number`)."""
+    number = real_number(value, field, error, where)
+    if number <= 0.0:
+        raise error(f"{where}{field} must be greater than 0, got {value!r}")
+    return number
+
+
+def point_2d(value: object, field: str, error: type[MapError], where: str = "") -> tuple[float, float]:
+    """Return ``value`` (a list or tuple of two finite numbers) as a tuple of floats."""
+    if not isinstance(value, (list, tuple, np.ndarray)) or np.ndim(value) != 1 or len(value) != 2:
+        raise error(f"{where}{field} must be a list of two numbers [x, y] in metres, got {value!r}")
+    x, y = value
+    # "+ 0.0" turns -0.0 into 0.0 so equal origins hash alike.
+    return (
+        real_number(x, f"{field}[0]", error, where) + 0.0,
+        real_number(y, f"{field}[1]", error, where) + 0.0,
+    )
+
+
+def unknown_is(value: object, field: str, error: type[MapError], where: str = "") -> str:
+    """Return ``value`` when it is ``"blocked"`` or ``"free"``."""
+    if value not in ("blocked", "free") or not isinstance(value, str):
+        raise error(f'{where}{field} must be "blocked" or "free", got {value!r}')
+    return value
+
+
+def cell_count_limit(value: object, field: str = "max_cells") -> int:
+    """Return ``value`` when it is a positive int (bool refused)."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral) or value < 1:
+        raise MapSettingsError(f"{field} must be a positive integer, got {value!r}")
+    return int(value)

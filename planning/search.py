@@ -1,0 +1,655 @@
+"""Hybrid A* search over continuous poses with a visited table of (row, col, heading bin).
+
+After Dolgov, Thrun, Montemerlo & Diebel, "Practical search techniques in path planning
+for autonomous driving" (AAAI STAIR workshop, 2008): A* whose nodes keep the continuous
+pose that first reached their lattice cell, successors from arcs of the kinematic bicycle
+model, the maximum of a holonomic-with-obstacles and a non-holonomic-without-obstacles
+heuristic, and analytic Reeds-Shepp (or Dubins) shots to the exact goal pose.
+
+Cost of a search: at most ``max_expansions`` expansions, each O(P x S) array work for
+P primitives with S collision samples each, plus one heap push per open successor.
+
+The :class:`Planner` keeps, per grid (by ``map_id``), the inflated collision mask and,
+per (grid, goal cell), the holonomic field, so a long-lived caller that replans on the
+same grid pays for them once. It holds no sockets and no messages.
+"""
+
+from __future__ import annotations
+
+import heapq
+import itertools
+import logging
+import math
+import threading
+import time
+from collections import OrderedDict
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from veer.maps import OccupancyGrid
+from veer.planning import curves
+from veer.planning.collision import FootprintChecker
+from veer.planning.errors import NoPath, PoseError
+from veer.planning.heuristics import HolonomicField, coarse_max, coarse_open_mask, holonomic_field, turning_table
+from veer.planning.path import PlannedPath
+from veer.planning.primitives import PrimitiveTable, arc_poses, build_primitive_table
+from veer.planning.settings import DEFAULT_SEARCH_SETTINGS, SearchSettings
+from veer.planning.vehicle import Vehicle
+
+__all__ = ["Planner", "GridContext", "plan_path"]
+
+log = logging.getLogger("veer.planning")
+
+_TWO_PI = 2.0 * math.pi
+
+
+def _wrap(angle: float) -> float:
+    return (angle + math.pi) % _TWO_PI - math.pi
+
+
+@dataclass
+class GridContext:
+    """What the planner derives from one grid for one vehicle: reused across plans."""
+
+    grid: OccupancyGrid
+    checker: FootprintChecker
+    lattice_factor: int
+    lattice_cell_m: float
+    open_coarse: np.ndarray
+    proximity_coarse: np.ndarray  # flat, per coarse cell: extra cost per metre (clearance cost)
+    prepare_s: float
+
+
+class Planner:
+    """Plans paths for one vehicle on any number of grids.
+
+    Parameters
+    ----------
+    vehicle : Vehicle
+    settings : SearchSettings
+    cache_size : int
+        Grids (and goal fields) kept between calls.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from veer.maps import OccupancyGrid
+    >>> grid = OccupancyGrid(np.zeros((200, 300), np.uint8), 0.1, (0.0, 0.0))
+    >>> from veer.planning.vehicle import EXAMPLE_VEHICLE
+    >>> path = Planner(EXAMPLE_VEHICLE).plan(grid, (5.0, 10.0, 0.0), (25.0, 10.0, 0.0))
+    >>> round(path.length_m, 1)
+    20.0
+    """
+
+    def __init__(self, vehicle: Vehicle, settings: SearchSettings = DEFAULT_SEARCH_SETTINGS, cache_size: int = 2):
+        self.vehicle = vehicle
+        self.settings = settings
+        self.cache_size = cache_size
+        self._grids: OrderedDict[str, GridContext] = OrderedDict()
+        self._fields: OrderedDict[tuple, HolonomicField] = OrderedDict()
+        self._lock = threading.Lock()
+
+    # ------------------------------------------------------------------ caches
+    def prepare(self, grid: OccupancyGrid, settings: SearchSettings | None = None) -> GridContext:
+        """Inflate ``grid`` for this vehicle (cached by ``map_id`` and search step)."""
+        settings = settings or self.settings
+        step = _primitive_step(self.vehicle, settings, grid.cell_size_m)
+        cache_key = (grid.map_id, step, settings.lattice_cell_m, settings.clearance_cost_factor, settings.clearance_range_m)
+        with self._lock:
+            context = self._grids.get(cache_key)
+            if context is not None:
+                self._grids.move_to_end(cache_key)
+                return context
+        t0 = time.perf_counter()
+        cs = grid.cell_size_m
+        sample_step = cs / 2.0
+        checker = FootprintChecker(grid, self.vehicle, sample_step_m=sample_step, reach_m=step)
+        lattice = settings.lattice_cell_m or step / 2.0
+        factor = max(1, int(round(lattice / cs)))
+        open_coarse = coarse_open_mask(checker.inflated.blocked, factor)
+        # clearance cost: rises linearly from 0 at clearance_range_m beyond the footprint to
+        # clearance_cost_factor at contact; per coarse cell, from its tightest fine cell
+        room = checker.inflated.clearance_m - np.float32(checker.circle_radius_m + checker.inflated.margin_m)
+        if settings.clearance_range_m > 0 and settings.clearance_cost_factor > 0:
+            tight = -coarse_max(-room, factor)
+            prox = settings.clearance_cost_factor * np.clip(1.0 - tight / settings.clearance_range_m, 0.0, 1.0)
+        else:
+            prox = np.zeros(open_coarse.shape)
+        proximity = np.ascontiguousarray(prox, dtype=np.float64).ravel()
+        context = GridContext(grid, checker, factor, factor * cs, open_coarse, proximity, time.perf_counter() - t0)
+        with self._lock:
+            self._grids[cache_key] = context
+            while len(self._grids) > self.cache_size:
+                self._grids.popitem(last=False)
+        return context
+
+    def _field(self, context: GridContext, goal_cell: tuple[int, int]) -> HolonomicField:
+        key = (context.grid.map_id, context.lattice_factor, goal_cell)
+        with self._lock:
+            found = self._fields.get(key)
+            if found is not None:
+                self._fields.move_to_end(key)
+                return found
+        field = holonomic_field(context.open_coarse, goal_cell, context.lattice_cell_m)
+        with self._lock:
+            self._fields[key] = field
+            while len(self._fields) > 4 * self.cache_size:
+                self._fields.popitem(last=False)
+        return field
+
+    # ------------------------------------------------------------------ checks
+    def check_path(self, grid: OccupancyGrid, poses: np.ndarray) -> int | None:
+        """Index of the first pose of an existing path that collides on ``grid``, else None.
+
+        Poses further apart than the collision sample step are densified first, so the
+        space between two poses is checked too; the index returned is into ``poses``.
+        """
+        context = self.prepare(grid)
+        poses = np.asarray(poses, dtype=float)
+        if len(poses) == 0:
+            return None
+        dense, owner = _densify(poses, context.checker.sample_step_m)
+        hit = context.checker.first_collision(dense)
+        return None if hit is None else int(owner[hit])
+
+    def validate_pose(self, context: GridContext, pose, name: str) -> None:
+        """Raise PoseError unless ``pose`` is on the map and its footprint is clear."""
+        grid = context.grid
+        x, y, h = (float(v) for v in pose)
+        if not all(math.isfinite(v) for v in (x, y, h)):
+            raise PoseError(f"{name} pose {pose} is not finite; give x_m, y_m, heading as numbers")
+        if not grid.contains(x, y):
+            raise PoseError(
+                f"{name} ({x:.2f}, {y:.2f}) is off the map, which spans x {grid.origin_m[0]:.2f}.."
+                f"{grid.origin_m[0] + grid.width_m:.2f} m, y {grid.origin_m[1]:.2f}..{grid.origin_m[1] + grid.height_m:.2f} m"
+            )
+        if not context.checker.poses_clear([x], [y], [h])[0]:
+            row, col = grid.world_to_cell(x, y)
+            what = "on a blocked cell" if grid.blocked[int(row), int(col)] else "too close to an obstacle for the vehicle"
+            raise PoseError(
+                f"{name} ({x:.2f}, {y:.2f}, {math.degrees(h):.0f} deg) at cell ({int(row)}, {int(col)}) is {what}; "
+                f"move it into open space"
+            )
+
+    # ------------------------------------------------------------------ search
+    def plan(
+        self,
+        grid: OccupancyGrid,
+        start,
+        goal,
+        *,
+        allow_reverse: bool | None = None,
+        cancel: threading.Event | None = None,
+        deadline_s: float | None = None,
+        settings: SearchSettings | None = None,
+    ) -> PlannedPath:
+        """Plan from ``start`` to ``goal`` (x_m, y_m, heading_rad) on ``grid``.
+
+        Raises
+        ------
+        PoseError
+            Start or goal off the map or in collision.
+        NoPath
+            ``goal_enclosed`` (proven before any search), ``budget_exhausted``,
+            ``deadline`` (``deadline_s`` seconds from the call, or ``max_time_s``),
+            ``cancelled`` (``cancel`` was set) or ``no_path_at_resolution``.
+        """
+        t0 = time.perf_counter()
+        settings = settings or self.settings
+        if allow_reverse is not None and allow_reverse != settings.allow_reverse:
+            settings = replace(settings, allow_reverse=allow_reverse)
+        context = self.prepare(grid, settings)
+        start = tuple(float(v) for v in start)
+        goal = tuple(float(v) for v in goal)
+        self.validate_pose(context, start, "start")
+        self.validate_pose(context, goal, "goal")
+        budget_s = settings.max_time_s if deadline_s is None else min(deadline_s, settings.max_time_s)
+        deadline = t0 + budget_s
+        try:
+            return _Search(self, context, settings, start, goal, t0, deadline, cancel).run()
+        except NoPath as first:
+            finer = _finer(settings)
+            if first.reason != "no_path_at_resolution" or finer is None:
+                raise
+            log.debug("no path with %d heading bins; trying %d", settings.heading_bins, finer.heading_bins)
+            search = _Search(self, context, finer, start, goal, t0, deadline, cancel)
+            search.stats["coarse_expansions"] = first.stats.get("expansions", 0)
+            try:
+                path = search.run()
+            except NoPath as second:
+                second.stats["expansions"] += first.stats.get("expansions", 0)
+                raise
+            path.stats["expansions"] += first.stats.get("expansions", 0)
+            path.stats["heading_bins"] = finer.heading_bins
+            return path
+
+
+def _finer(settings: SearchSettings) -> SearchSettings | None:
+    """The same search at twice the heading and steering resolution (same step), if allowed."""
+    if not settings.refine_on_exhaustion or settings.heading_bins * 2 > 720 or settings.steer_levels * 2 > 8:
+        return None
+    return replace(
+        settings,
+        heading_bins=settings.heading_bins * 2,
+        steer_levels=settings.steer_levels * 2,
+        refine_on_exhaustion=False,
+    )
+
+
+def plan_path(grid, vehicle, start, goal, settings: SearchSettings = DEFAULT_SEARCH_SETTINGS, **kwargs) -> PlannedPath:
+    """One-shot convenience: ``Planner(vehicle, settings).plan(grid, start, goal, **kwargs)``."""
+    return Planner(vehicle, settings, cache_size=1).plan(grid, start, goal, **kwargs)
+
+
+def _primitive_step(vehicle: Vehicle, settings: SearchSettings, cell_size_m: float) -> float:
+    if settings.step_m:
+        return settings.step_m
+    if vehicle.turns_in_place:
+        return max(4 * cell_size_m, 0.5)
+    return settings.steer_levels * settings.heading_bin_rad * vehicle.min_turn_radius_m
+
+
+def _densify(poses: np.ndarray, step_m: float) -> tuple[np.ndarray, np.ndarray]:
+    """Insert straight-line samples between poses further apart than ``step_m``.
+
+    Returns the dense poses and, for each, the index of the original pose it leads to.
+    """
+    out = [poses[:1, :3]]
+    owner = [np.zeros(1, dtype=np.intp)]
+    for i in range(1, len(poses)):
+        a, b = poses[i - 1, :3], poses[i, :3]
+        n = max(1, int(math.ceil(math.hypot(b[0] - a[0], b[1] - a[1]) / step_m)))
+        t = (np.arange(1, n + 1) / n)[:, None]
+        dh = _wrap(b[2] - a[2])
+        seg = np.column_stack((a[0] + t[:, 0] * (b[0] - a[0]), a[1] + t[:, 0] * (b[1] - a[1]), a[2] + t[:, 0] * dh))
+        out.append(seg)
+        owner.append(np.full(n, i, dtype=np.intp))
+    return np.vstack(out), np.concatenate(owner)
+
+
+class _Search:
+    """One run of hybrid A*; all state local, so concurrent plans never share it."""
+
+    def __init__(self, planner: Planner, context: GridContext, settings: SearchSettings, start, goal, t0, deadline, cancel):
+        self.planner = planner
+        self.vehicle = planner.vehicle
+        self.context = context
+        self.settings = settings
+        self.start = start
+        self.goal = goal
+        self.t0 = t0
+        self.deadline = deadline
+        self.cancel = cancel
+        self.stats = {"expansions": 0, "generated": 0, "shots_tried": 0}
+
+    # -------------------------------------------------------------- helpers
+    def _finish_stats(self, **extra) -> dict:
+        stats = dict(self.stats)
+        stats.update(extra)
+        stats["plan_s"] = round(time.perf_counter() - self.t0, 6)
+        return stats
+
+    def _shot(self, x: float, y: float, h: float):
+        """Analytic path from (x, y, h) to the goal, or None; returns (samples (N, 4), cost)."""
+        vehicle, settings = self.vehicle, self.settings
+        checker = self.context.checker
+        if vehicle.turns_in_place:
+            return self._turn_in_place_shot(x, y, h)
+        radius = vehicle.min_turn_radius_m
+        if settings.allow_reverse:
+            path = curves.reeds_shepp_shortest((x, y, h), self.goal, radius)
+        else:
+            path = curves.dubins_shortest((x, y, h), self.goal, radius)
+        samples = path.sample((x, y, h), checker.sample_step_m)
+        if not checker.poses_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]).all():
+            return None
+        cost = 0.0
+        for kind, length in path.segments:
+            cost += abs(length) * (settings.reverse_cost_factor if length < 0 else 1.0) * (
+                1.0 + (settings.steer_cost_factor if kind != "S" else 0.0)
+            )
+        cost += settings.gear_change_cost_m * path.gear_changes
+        return path, cost
+
+    def _turn_in_place_shot(self, x, y, h):
+        checker = self.context.checker
+        gx, gy, gh = self.goal
+        dist = math.hypot(gx - x, gy - y)
+        heading = math.atan2(gy - y, gx - x) if dist > 1e-9 else h
+        reach = self.vehicle.bounding_radius_m
+        pieces = []
+        pose = (x, y, h)
+        for target in (heading, gh):
+            turn = _wrap(target - pose[2])
+            n = max(1, int(math.ceil(abs(turn) * max(reach, 1e-6) / checker.sample_step_m)))
+            hs = pose[2] + turn * np.arange(1, n + 1) / n
+            pieces.append(("rotate", turn, np.column_stack((np.full(n, pose[0]), np.full(n, pose[1]), hs))))
+            pose = (pose[0], pose[1], pose[2] + turn)
+            if target is heading and dist > 1e-9:
+                n = max(1, int(math.ceil(dist / checker.sample_step_m)))
+                line = arc_poses(x, y, heading, dist, 0.0, np.arange(1, n + 1) / n)
+                pieces.append(("S", dist, line))
+                pose = (gx, gy, heading)
+        dense = np.vstack([p[2] for p in pieces])
+        if not checker.poses_clear(dense[:, 0], dense[:, 1], dense[:, 2]).all():
+            return None
+        cost = dist + sum(abs(p[1]) * reach for p in pieces if p[0] == "rotate")
+        return pieces, cost
+
+    # -------------------------------------------------------------- main loop
+    def run(self) -> PlannedPath:
+        settings, vehicle, context = self.settings, self.vehicle, self.context
+        grid, checker = context.grid, context.checker
+        sx, sy, sh = self.start
+        gx, gy, gh = self.goal
+        cs = grid.cell_size_m
+        lattice_m = context.lattice_cell_m
+        inv_lat = 1.0 / lattice_m
+        ox = grid.origin_m[0]
+        top = grid.origin_m[1] + grid.rows * cs
+        rows_c, cols_c = context.open_coarse.shape
+
+        def coarse_cell(x, y):
+            return int((top - y) * inv_lat), int((x - ox) * inv_lat)
+
+        # ---- the holonomic field, and the proof that the goal is enclosed
+        t_field = time.perf_counter()
+        goal_cell = coarse_cell(gx, gy)
+        start_cell = coarse_cell(sx, sy)
+        field = self.planner._field(context, goal_cell)
+        field_s = time.perf_counter() - t_field
+        if not field.reachable(*start_cell):
+            raise NoPath(
+                "goal_enclosed",
+                "the goal cannot be reached from the start even ignoring the turning limit",
+                self._finish_stats(field_s=round(field_s, 6)),
+            )
+        use_field = settings.use_heuristic_field
+        h2_flat = field.lower_bound_flat
+
+        # ---- turning heuristic table (unit radius)
+        radius = vehicle.min_turn_radius_m
+        table = None
+        if settings.use_turning_heuristic and radius > 0:
+            # lower envelope over +-2 entries: the table step is 0.125 turning radii and a
+            # pose lies within 0.21 radii of its lattice cell's nearest entry (see spread)
+            table = turning_table("reeds_shepp" if settings.allow_reverse else "dubins", spread=2)
+        cg, sg = math.cos(gh), math.sin(gh)
+
+        # ---- primitives tabulated for this start heading
+        prims: PrimitiveTable = build_primitive_table(
+            vehicle, settings, sh, cell_size_m=cs, sample_step_m=checker.sample_step_m,
+            circle_offsets_m=checker.circle_offsets_m,
+        )
+        n_prims = len(prims.primitives)
+        bins = settings.heading_bins
+        bin_rad = settings.heading_bin_rad
+        inv_cell = checker.inv_cell
+        circle_cols = prims.circle_dx_m * inv_cell  # (K, P, S*C) in cells
+        circle_rows = prims.circle_dy_m * inv_cell
+        end_dx, end_dy = prims.end_dx_m, prims.end_dy_m
+        end_k = prims.end_heading_index
+        end_k_list = end_k.tolist()
+        rel_heading = (sh - gh + bin_rad * np.arange(bins))  # heading of index k relative to goal
+        transition = prims.transition_cost.tolist()
+        motion_len = prims.motion_length_m
+        blocked_flat = checker.blocked_flat
+        width_p = checker.padded_cols
+        left_p, top_p = checker.left_x_m, checker.top_y_m
+        prox_coarse = context.proximity_coarse
+        weight = settings.heuristic_weight
+        has_rect = vehicle.has_rectangle
+        tol_m = settings.goal_tolerance_m
+        tol_rad = math.radians(settings.goal_tolerance_deg)
+        shot_near = settings.shot_near_m if settings.shot_near_m is not None else 4.0 * max(radius, lattice_m)
+        shot_interval = settings.shot_interval
+        use_shots = settings.use_analytic_shots
+        max_exp = settings.max_expansions
+        deadline, cancel = self.deadline, self.cancel
+
+        # ---- node store: parallel lists indexed by node id
+        node_x = [sx]
+        node_y = [sy]
+        node_k = [0]
+        node_g = [0.0]
+        node_parent = [-1]
+        node_prim = [n_prims]  # row n_prims of the transition table = "no motion yet"
+        sr, sc = coarse_cell(sx, sy)
+        start_key = (sr * cols_c + sc) * bins
+        node_key = [start_key]
+        best_open: dict[int, int] = {start_key: 0}  # lattice key -> node id of its best open node
+        closed: set[int] = set()  # lattice keys already expanded
+        h_flat, shot_worthy = self._heuristic_table(context, field, table, rel_heading)
+        h0 = float(h_flat[start_key])
+        tie = itertools.count()  # heap ties never compare nodes
+        heap = [(h0, h0, next(tie), 0)]  # (f, h, tie, node): equal f -> deeper node first
+        heappush, heappop = heapq.heappush, heapq.heappop
+        expansions = generated = shots = 0
+        reason = "no_path_at_resolution"
+        finish = None  # (node id, shot or None)
+
+        while heap:
+            f, _, _, i = heappop(heap)
+            key = node_key[i]
+            if key in closed or best_open.get(key) != i:
+                continue
+            del best_open[key]
+            closed.add(key)
+            expansions += 1
+            x, y, k, g = node_x[i], node_y[i], node_k[i], node_g[i]
+            if expansions & 127 == 0:
+                if expansions >= max_exp:
+                    reason = "budget_exhausted"
+                    break
+                now = time.perf_counter()
+                if now > deadline:
+                    reason = "deadline"
+                    break
+                if cancel is not None and cancel.is_set():
+                    reason = "cancelled"
+                    break
+            heading = sh + k * bin_rad
+            dist_goal = math.hypot(x - gx, y - gy)
+            if dist_goal <= tol_m and abs(_wrap(heading - gh)) <= tol_rad:
+                finish = (i, None)
+                break
+            # shots every shot_interval expansions, more often as the goal nears
+            if use_shots and shot_worthy[key] and (
+                expansions % (shot_interval if dist_goal > shot_near else
+                              max(1, int(shot_interval * dist_goal / shot_near))) == 0
+            ):
+                shots += 1
+                shot = self._shot(x, y, heading)
+                if shot is not None:
+                    finish = (i, shot[0])
+                    break
+
+            # ---- successors: collision samples of every primitive in one lookup
+            colf = circle_cols[k] + (x - left_p) * inv_cell
+            rowf = (top_p - y) * inv_cell - circle_rows[k]
+            hit = blocked_flat[rowf.astype(np.intp) * width_p + colf.astype(np.intp)].any(axis=1)
+            if has_rect and hit.any():
+                for p in np.flatnonzero(hit):
+                    px = x + prims.sample_dx_m[k, p]
+                    py = y + prims.sample_dy_m[k, p]
+                    if checker.poses_clear(px, py, prims.sample_heading_rad[k, p]).all():
+                        hit[p] = False
+            ex = x + end_dx[k]
+            ey = y + end_dy[k]
+            cells = ((top - ey) * inv_lat).astype(np.intp) * cols_c + ((ex - ox) * inv_lat).astype(np.intp)
+            keys_arr = cells * bins + end_k[k]
+            keys = keys_arr.tolist()
+            hs = h_flat[keys_arr].tolist()
+            extra = (prox_coarse[cells] * motion_len).tolist()
+            trans = transition[node_prim[i]]
+            exl, eyl = ex.tolist(), ey.tolist()
+            k_row = end_k_list[k]
+            for p, blocked_here in enumerate(hit.tolist()):
+                if blocked_here:
+                    continue
+                key2 = keys[p]
+                if key2 in closed:
+                    continue
+                g2 = g + trans[p] + extra[p]
+                other = best_open.get(key2)
+                if other is not None and node_g[other] <= g2:
+                    continue
+                n = len(node_x)
+                node_x.append(exl[p])
+                node_y.append(eyl[p])
+                node_k.append(k_row[p])
+                node_g.append(g2)
+                node_parent.append(i)
+                node_prim.append(p)
+                node_key.append(key2)
+                best_open[key2] = n
+                heappush(heap, (g2 + weight * hs[p], hs[p], next(tie), n))
+                generated += 1
+
+        self.stats.update(expansions=expansions, generated=generated, shots_tried=shots)
+        if finish is None:
+            if not heap and reason == "no_path_at_resolution":
+                detail = "every pose reachable at this search resolution was tried without reaching the goal"
+            else:
+                detail = f"stopped after {expansions} expansions ({reason})"
+            raise NoPath(reason, detail, self._finish_stats(field_s=round(field_s, 6)))
+        path = self._assemble(finish, node_x, node_y, node_k, node_parent, node_prim, prims)
+        path.stats = self._finish_stats(
+            field_s=round(field_s, 6), prepare_s=round(context.prepare_s, 6), final_poses=len(path.poses)
+        )
+        log.debug("plan %s -> %s: %s", self.start, self.goal, path.stats)
+        return path
+
+    def _heuristic_table(self, context: GridContext, field: HolonomicField, table, rel_heading) -> np.ndarray:
+        """h, and whether a shot is worth trying, for every lattice key (cell * bins + heading), flat.
+
+        h is the holonomic field (or, in plain mode, the straight-line distance) at each
+        coarse cell, raised near the goal to the turning-table length for each heading.
+        A shot is worth trying from a key when the shortest obstacle-free curve (table
+        estimate, or the straight line beyond the table) is not clearly shorter than the
+        obstacle-aware distance: otherwise obstacles stand in the curve's way and the shot
+        would only be sampled to be rejected. Built once per search, so expanding a node
+        reads both with one index.
+        """
+        settings, vehicle = self.settings, self.vehicle
+        grid = context.grid
+        bins = settings.heading_bins
+        rows_c, cols_c = context.open_coarse.shape
+        lat = context.lattice_cell_m
+        gx, gy, gh = self.goal
+        top = grid.origin_m[1] + grid.rows * grid.cell_size_m
+        centre_x = grid.origin_m[0] + (np.arange(cols_c) + 0.5) * lat
+        centre_y = top - (np.arange(rows_c) + 0.5) * lat
+        if settings.use_heuristic_field:
+            base = field.lower_bound_flat.reshape(rows_c, cols_c)
+        else:
+            base = np.hypot(centre_x[None, :] - gx, centre_y[:, None] - gy)
+        h = np.repeat(base[:, :, None], bins, axis=2)
+        straight = np.hypot(centre_x[None, :] - gx, centre_y[:, None] - gy)
+        estimate = np.repeat(straight[:, :, None], bins, axis=2)
+        if table is not None:
+            radius = vehicle.min_turn_radius_m
+            reach = table.pos_step * (table.lengths.shape[1] - 1) * radius
+            c0 = max(0, int((gx - reach - grid.origin_m[0]) / lat))
+            c1 = min(cols_c, int((gx + reach - grid.origin_m[0]) / lat) + 1)
+            r0 = max(0, int((top - gy - reach) / lat))
+            r1 = min(rows_c, int((top - gy + reach) / lat) + 1)
+            if r0 < r1 and c0 < c1:
+                dx = centre_x[None, c0:c1, None] - gx
+                dy = centre_y[r0:r1, None, None] - gy
+                cg, sg = math.cos(gh), math.sin(gh)
+                u = (cg * dx + sg * dy) / radius
+                v = (-sg * dx + cg * dy) / radius
+                u, v, rel = np.broadcast_arrays(u, v, rel_heading[None, None, :])
+                turning = table.lookup(u, v, rel) * radius
+                np.maximum(h[r0:r1, c0:c1], turning, out=h[r0:r1, c0:c1])
+                nearest = turning_table(table.kind).lookup(u, v, rel) * radius
+                np.maximum(estimate[r0:r1, c0:c1], nearest, out=estimate[r0:r1, c0:c1])
+        if settings.use_heuristic_field:
+            slack_m = 2.0 * lat + 0.5
+            worthy = estimate + slack_m >= base[:, :, None]
+        else:
+            worthy = np.ones(h.shape, dtype=bool)
+        return h.ravel(), worthy.ravel().tolist()
+
+    # -------------------------------------------------------------- output
+    def _assemble(self, finish, node_x, node_y, node_k, node_parent, node_prim, prims) -> PlannedPath:
+        settings = self.settings
+        out_step = settings.output_step_m
+        sh = self.start[2]
+        bin_rad = settings.heading_bin_rad
+        i, shot = finish
+        chain = []
+        while i >= 0:
+            chain.append(i)
+            i = node_parent[i]
+        chain.reverse()
+        poses = [np.array([[self.start[0], self.start[1], self.start[2], 0.0]])]
+        curvature = [np.array([0.0])]
+        for a, b in zip(chain[:-1], chain[1:]):
+            prim = prims.primitives[node_prim[b]]
+            x, y, h = node_x[a], node_y[a], sh + node_k[a] * bin_rad
+            if prim.rotation_rad:
+                n = max(1, int(math.ceil(abs(prim.rotation_rad) / math.radians(5.0))))
+                hs = h + prim.rotation_rad * np.arange(1, n + 1) / n
+                seg = np.column_stack((np.full(n, x), np.full(n, y), hs, np.ones(n)))
+                kappa = np.full(n, math.copysign(math.inf, prim.rotation_rad))
+            else:
+                n = max(1, int(math.ceil(abs(prim.length_m) / out_step - 1e-9)))
+                seg = arc_poses(x, y, h, prim.length_m, prim.curvature_per_m, np.arange(1, n + 1) / n)
+                seg = np.column_stack((seg, np.full(n, float(prim.gear))))
+                # signed geometric curvature: heading change per metre travelled
+                kappa = np.full(n, prim.turn_bins * bin_rad / abs(prim.length_m))
+            # snap the end exactly onto the node (removes round-off between tables and arcs)
+            seg[-1, 0], seg[-1, 1] = node_x[b], node_y[b]
+            poses.append(seg)
+            curvature.append(kappa)
+        if shot is not None:
+            last = poses[-1][-1]
+            if isinstance(shot, list):  # turn-in-place shot pieces
+                for kind, amount, dense in shot:
+                    if kind == "rotate":
+                        n = max(1, int(math.ceil(abs(amount) / math.radians(5.0))))
+                        sel = dense[np.linspace(0, len(dense) - 1, n + 1).astype(int)[1:]]
+                        kappa = np.full(len(sel), math.copysign(math.inf, amount) if amount else 0.0)
+                    else:
+                        n = max(1, int(math.ceil(amount / out_step)))
+                        sel = dense[np.linspace(0, len(dense) - 1, n + 1).astype(int)[1:]]
+                        kappa = np.zeros(len(sel))
+                    poses.append(np.column_stack((sel, np.ones(len(sel)))))
+                    curvature.append(kappa)
+            else:
+                samples = shot.sample((float(last[0]), float(last[1]), float(last[2])), out_step)
+                poses.append(samples[1:])
+                curvature.append(_curve_curvatures(shot, samples[1:], last))
+        all_poses = np.vstack(poses)
+        all_kappa = np.concatenate(curvature)
+        # drop zero-length repeats (a shot from the exact goal, cusp duplicates)
+        keep = np.ones(len(all_poses), dtype=bool)
+        step = np.hypot(np.diff(all_poses[:, 0]), np.diff(all_poses[:, 1]))
+        turn = np.abs((np.diff(all_poses[:, 2]) + math.pi) % _TWO_PI - math.pi)
+        keep[1:] = (step > 1e-9) | (turn > 1e-9)
+        all_poses, all_kappa = all_poses[keep], all_kappa[keep]
+        if len(all_poses) > 1:
+            all_poses[0, 3] = all_poses[1, 3]
+            all_kappa[0] = all_kappa[1]
+        else:
+            all_poses[0, 3] = 1.0
+        return PlannedPath.from_poses(all_poses, all_kappa, {})
+
+
+def _curve_curvatures(path, samples: np.ndarray, start) -> np.ndarray:
+    """Curvature of the analytic-curve segment that reached each sample."""
+    radius = path.turn_radius_m
+    bounds = np.cumsum([abs(length) for _, length in path.segments])
+    # arc length of each sample along the path, from the sample spacing
+    pts = np.vstack((np.asarray(start)[None, :2], samples[:, :2]))
+    s = np.cumsum(np.hypot(np.diff(pts[:, 0]), np.diff(pts[:, 1])))
+    seg_index = np.minimum(np.searchsorted(bounds, s - 1e-9), len(bounds) - 1)
+    # heading change per metre travelled: a left arc driven in reverse turns clockwise
+    sign = np.array(
+        [(1.0 if kind == "L" else -1.0 if kind == "R" else 0.0) * (1.0 if length >= 0 else -1.0)
+         for kind, length in path.segments]
+    )
+    return sign[seg_index] / radius
