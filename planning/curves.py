@@ -57,6 +57,8 @@ __all__ = [
     "dubins_lengths_unit",
     "reeds_shepp_shortest",
     "reeds_shepp_length",
+    "reeds_shepp_shortest_few",
+    "dubins_shortest_few",
     "reeds_shepp_lengths_unit",
 ]
 
@@ -532,6 +534,34 @@ def _best_path(candidates, r: float, signed_word: bool) -> CurvePath:
     return CurvePath(word, segments, r)
 
 
+def _to_path(pat, mags, r: float, signed_word: bool) -> CurvePath:
+    segments = tuple(
+        (k, g * (m * r if m > _ZERO_LENGTH else 0.0)) for (k, g), m in zip(pat, mags)
+    )
+    if signed_word:
+        word = "".join(k + ("+" if g > 0 else "-") for k, g in pat)
+    else:
+        word = "".join(k for k, _ in pat)
+    return CurvePath(word, segments, r)
+
+
+def _few_paths(candidates, r: float, signed_word: bool, count: int) -> list[CurvePath]:
+    """The ``count`` shortest distinct candidates, shortest first (ties: fewer cusps)."""
+    ordered = sorted(candidates, key=lambda c: (round(c[0], 9), _cusps(c[1], c[2])))
+    paths: list[CurvePath] = []
+    seen = set()
+    for _, pat, mags in ordered:
+        path = _to_path(pat, mags, r, signed_word)
+        signature = tuple((k, round(length, 6)) for k, length in path.segments if abs(length) > 1e-9)
+        if signature in seen:
+            continue
+        seen.add(signature)
+        paths.append(path)
+        if len(paths) == count:
+            break
+    return paths
+
+
 # --------------------------------------------------------------------------------------
 # Public scalar API
 # --------------------------------------------------------------------------------------
@@ -641,6 +671,24 @@ def reeds_shepp_shortest(start, goal, turn_radius_m) -> CurvePath:
     """
     x, y, phi, r = _relative_unit(start, goal, turn_radius_m)
     return _best_path(_rs_candidates(x, y, phi), r, signed_word=True)
+
+
+def reeds_shepp_shortest_few(start, goal, turn_radius_m, count: int = 3) -> list[CurvePath]:
+    """The ``count`` shortest distinct Reeds-Shepp candidates, shortest first.
+
+    The first equals :func:`reeds_shepp_shortest`. A planner that finds the shortest
+    curve blocked can try the next ones before giving up on a shot (cf. Dang et al.,
+    "Improved analytic expansions in hybrid A-star path planning for non-holonomic
+    robots", Applied Sciences 12:5999, 2022).
+    """
+    x, y, phi, r = _relative_unit(start, goal, turn_radius_m)
+    return _few_paths(_rs_candidates(x, y, phi), r, True, count)
+
+
+def dubins_shortest_few(start, goal, turn_radius_m, count: int = 3) -> list[CurvePath]:
+    """The ``count`` shortest distinct Dubins candidates, shortest first."""
+    x, y, phi, r = _relative_unit(start, goal, turn_radius_m)
+    return _few_paths(_dubins_candidates(x, y, phi), r, False, count)
 
 
 def reeds_shepp_length(start, goal, turn_radius_m) -> float:

@@ -167,6 +167,37 @@ class TurningTable:
                     np.minimum(out, np.roll(window, -dh, axis=2), out=out)
         return TurningTable(self.kind, self.pos_step, self.heading_bins, self.u_offset, out)
 
+    def lookup_separable(self, u, v, phi) -> np.ndarray:
+        """:meth:`lookup` for every combination of 2-D positions (u, v) and headings phi.
+
+        ``u``, ``v`` of one shape S, ``phi`` 1-D of length H; returns shape S + (H,).
+        The folding is worked out once per position and once per heading, so a window of
+        lattice cells x heading bins costs one gather.
+        """
+        u = np.asarray(u, dtype=float)
+        v = np.asarray(v, dtype=float)
+        phi = np.asarray(phi, dtype=float)
+        to_bin = self.heading_bins / (2 * math.pi)
+        ih_pos = np.rint(phi * to_bin).astype(np.intp) % self.heading_bins
+        ih_neg = np.rint(-phi * to_bin).astype(np.intp) % self.heading_bins
+        if self.kind == "reeds_shepp":
+            flip = (u < 0) ^ (v < 0)
+            iu = np.rint(np.abs(u) / self.pos_step).astype(np.intp)
+        else:
+            # time-flip (u, phi) -> (-u, -phi), then reflect when v < 0 (negates phi again)
+            flip = ~(v < 0)
+            iu = np.rint(-u / self.pos_step).astype(np.intp) + self.u_offset
+        iv = np.rint(np.abs(v) / self.pos_step).astype(np.intp)
+        nu, nv, _ = self.lengths.shape
+        inside = (iu >= 0) & (iu < nu) & (iv < nv)
+        ih = np.where(flip[..., None], ih_neg, ih_pos)
+        flat = (np.clip(iu, 0, nu - 1) * nv + np.clip(iv, 0, nv - 1)) * self.heading_bins
+        value = self.lengths.reshape(-1)[flat[..., None] + ih]
+        outside = ~inside
+        if outside.any():
+            value[outside] = np.hypot(u, v)[outside][:, None]
+        return value
+
     def lookup(self, u, v, phi) -> np.ndarray:
         """Unit-radius length from poses (u, v, phi) in the goal frame to the goal.
 

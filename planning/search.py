@@ -17,7 +17,7 @@ same grid pays for them once. It holds no sockets and no messages.
 from __future__ import annotations
 
 import heapq
-import itertools
+from array import array
 import logging
 import math
 import threading
@@ -42,6 +42,7 @@ __all__ = ["Planner", "GridContext", "plan_path"]
 log = logging.getLogger("veer.planning")
 
 _TWO_PI = 2.0 * math.pi
+_TURNING_WINDOW_RADII = 6.0  # turning heuristic applied within this many turn radii of the goal
 
 
 def _wrap(angle: float) -> float:
@@ -172,6 +173,21 @@ class Planner:
                 f"move it into open space"
             )
 
+    def _in_narrow_passage(self, context: GridContext, poses) -> bool:
+        """True when a pose has less free room sideways than a quarter lattice cell.
+
+        Room is the clearance left beyond the footprint's circles and margins; coarse
+        steering cannot hold a line that tight, so such plans start at the finer resolution.
+        """
+        checker = context.checker
+        inflated = checker.inflated
+        need = checker.circle_radius_m + inflated.margin_m
+        for x, y, _ in poses:
+            row, col = context.grid.world_to_cell(x, y)
+            if inflated.clearance_m[int(row), int(col)] - need < context.lattice_cell_m / 4.0:
+                return True
+        return False
+
     # ------------------------------------------------------------------ search
     def plan(
         self,
@@ -206,10 +222,15 @@ class Planner:
         self.validate_pose(context, goal, "goal")
         budget_s = settings.max_time_s if deadline_s is None else min(deadline_s, settings.max_time_s)
         deadline = t0 + budget_s
+        finer = _finer(settings)
+        if finer is not None and self._in_narrow_passage(context, (start, goal)):
+            # a coarse search would only exhaust itself first: go straight to the finer one
+            path = _Search(self, context, finer, start, goal, t0, deadline, cancel).run()
+            path.stats["heading_bins"] = finer.heading_bins
+            return path
         try:
             return _Search(self, context, settings, start, goal, t0, deadline, cancel).run()
         except NoPath as first:
-            finer = _finer(settings)
             if first.reason != "no_path_at_resolution" or finer is None:
                 raise
             log.debug("no path with %d heading bins; trying %d", settings.heading_bins, finer.heading_bins)
@@ -297,20 +318,19 @@ class _Search:
         if vehicle.turns_in_place:
             return self._turn_in_place_shot(x, y, h)
         radius = vehicle.min_turn_radius_m
-        if settings.allow_reverse:
-            path = curves.reeds_shepp_shortest((x, y, h), self.goal, radius)
-        else:
-            path = curves.dubins_shortest((x, y, h), self.goal, radius)
-        samples = path.sample((x, y, h), checker.sample_step_m)
-        if not checker.poses_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]).all():
-            return None
-        cost = 0.0
-        for kind, length in path.segments:
-            cost += abs(length) * (settings.reverse_cost_factor if length < 0 else 1.0) * (
-                1.0 + (settings.steer_cost_factor if kind != "S" else 0.0)
-            )
-        cost += settings.gear_change_cost_m * path.gear_changes
-        return path, cost
+        few = curves.reeds_shepp_shortest_few if settings.allow_reverse else curves.dubins_shortest_few
+        for path in few((x, y, h), self.goal, radius, settings.shot_candidates):
+            samples = path.sample((x, y, h), checker.sample_step_m)
+            if not checker.poses_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]).all():
+                continue
+            cost = 0.0
+            for kind, length in path.segments:
+                cost += abs(length) * (settings.reverse_cost_factor if length < 0 else 1.0) * (
+                    1.0 + (settings.steer_cost_factor if kind != "S" else 0.0)
+                )
+            cost += settings.gear_change_cost_m * path.gear_changes
+            return path, cost
+        return None
 
     def _turn_in_place_shot(self, x, y, h):
         checker = self.context.checker
@@ -418,24 +438,40 @@ class _Search:
         sr, sc = coarse_cell(sx, sy)
         start_key = (sr * cols_c + sc) * bins
         node_key = [start_key]
-        best_open: dict[int, int] = {start_key: 0}  # lattice key -> node id of its best open node
-        closed: set[int] = set()  # lattice keys already expanded
-        h_flat, shot_worthy = self._heuristic_table(context, field, table, rel_heading)
-        h0 = float(h_flat[start_key])
-        tie = itertools.count()  # heap ties never compare nodes
-        heap = [(h0, h0, next(tie), 0)]  # (f, h, tie, node): equal f -> deeper node first
+        # lattice key -> node id of the best open node there, or CLOSED once expanded
+        state: dict[int, int] = {start_key: 0}
+        CLOSED = -1
+        h_values, worthy = self._heuristic_table(context, field, table, rel_heading)
+        h_flat = array("d", h_values.tobytes())  # plain-float reads in the loop
+        shot_worthy = worthy.astype(np.uint8).tobytes()
+        prox = array("d", prox_coarse.tobytes())
+        h0 = h_flat[start_key]
+        heap = [(h0, 0)]  # (f, node id): ids rise, so ties go to the older node, never compare poses
         heappush, heappop = heapq.heappush, heapq.heappop
+        goal_key = None
+        if settings.goal_test_lattice:
+            goal_index = int(round(_wrap(gh - sh) / bin_rad)) % bins
+            goal_key = (goal_cell[0] * cols_c + goal_cell[1]) * bins + goal_index
+        # per heading index: every collision sample as (row, col) offsets in cells, and
+        # each primitive's end offset, lattice heading index and cost as plain lists
+        samples_per_prim = circle_cols.shape[2]
+        sample_offsets = np.stack((-circle_rows, circle_cols), axis=-1).reshape(bins, -1, 2)
+        index_weights = np.array([width_p, 1], dtype=np.intp)
+        end_dx_list = end_dx.tolist()
+        end_dy_list = end_dy.tolist()
+        motion_len_list = motion_len.tolist()
+        prim_range = range(n_prims)
+        t_loop = time.perf_counter()
         expansions = generated = shots = 0
         reason = "no_path_at_resolution"
         finish = None  # (node id, shot or None)
 
         while heap:
-            f, _, _, i = heappop(heap)
+            i = heappop(heap)[1]
             key = node_key[i]
-            if key in closed or best_open.get(key) != i:
+            if state[key] != i:  # closed, or superseded by a cheaper node in the same key
                 continue
-            del best_open[key]
-            closed.add(key)
+            state[key] = CLOSED
             expansions += 1
             x, y, k, g = node_x[i], node_y[i], node_k[i], node_g[i]
             if expansions & 127 == 0:
@@ -454,6 +490,9 @@ class _Search:
             if dist_goal <= tol_m and abs(_wrap(heading - gh)) <= tol_rad:
                 finish = (i, None)
                 break
+            if key == goal_key:
+                finish = (i, None)
+                break
             # shots every shot_interval expansions, more often as the goal nears
             if use_shots and shot_worthy[key] and (
                 expansions % (shot_interval if dist_goal > shot_near else
@@ -466,48 +505,47 @@ class _Search:
                     break
 
             # ---- successors: collision samples of every primitive in one lookup
-            colf = circle_cols[k] + (x - left_p) * inv_cell
-            rowf = (top_p - y) * inv_cell - circle_rows[k]
-            hit = blocked_flat[rowf.astype(np.intp) * width_p + colf.astype(np.intp)].any(axis=1)
+            cells = (sample_offsets[k] + ((top_p - y) * inv_cell, (x - left_p) * inv_cell)).astype(np.intp)
+            hit = blocked_flat[cells.dot(index_weights)].reshape(n_prims, samples_per_prim).any(axis=1)
             if has_rect and hit.any():
                 for p in np.flatnonzero(hit):
                     px = x + prims.sample_dx_m[k, p]
                     py = y + prims.sample_dy_m[k, p]
                     if checker.poses_clear(px, py, prims.sample_heading_rad[k, p]).all():
                         hit[p] = False
-            ex = x + end_dx[k]
-            ey = y + end_dy[k]
-            cells = ((top - ey) * inv_lat).astype(np.intp) * cols_c + ((ex - ox) * inv_lat).astype(np.intp)
-            keys_arr = cells * bins + end_k[k]
-            keys = keys_arr.tolist()
-            hs = h_flat[keys_arr].tolist()
-            extra = (prox_coarse[cells] * motion_len).tolist()
+            hit_list = hit.tolist()
             trans = transition[node_prim[i]]
-            exl, eyl = ex.tolist(), ey.tolist()
-            k_row = end_k_list[k]
-            for p, blocked_here in enumerate(hit.tolist()):
-                if blocked_here:
+            dx_row, dy_row, k_row = end_dx_list[k], end_dy_list[k], end_k_list[k]
+            for p in prim_range:
+                if hit_list[p]:
                     continue
-                key2 = keys[p]
-                if key2 in closed:
+                ex = x + dx_row[p]
+                ey = y + dy_row[p]
+                cell = int((top - ey) * inv_lat) * cols_c + int((ex - ox) * inv_lat)
+                k2 = k_row[p]
+                key2 = cell * bins + k2
+                other = state.get(key2)
+                if other == CLOSED:
                     continue
-                g2 = g + trans[p] + extra[p]
-                other = best_open.get(key2)
+                g2 = g + trans[p] + prox[cell] * motion_len_list[p]
                 if other is not None and node_g[other] <= g2:
                     continue
                 n = len(node_x)
-                node_x.append(exl[p])
-                node_y.append(eyl[p])
-                node_k.append(k_row[p])
+                node_x.append(ex)
+                node_y.append(ey)
+                node_k.append(k2)
                 node_g.append(g2)
                 node_parent.append(i)
                 node_prim.append(p)
                 node_key.append(key2)
-                best_open[key2] = n
-                heappush(heap, (g2 + weight * hs[p], hs[p], next(tie), n))
+                state[key2] = n
+                heappush(heap, (g2 + weight * h_flat[key2], n))
                 generated += 1
 
-        self.stats.update(expansions=expansions, generated=generated, shots_tried=shots)
+        self.stats.update(
+            expansions=expansions, generated=generated, shots_tried=shots,
+            search_s=round(time.perf_counter() - t_loop, 6),
+        )
         if finish is None:
             if not heap and reason == "no_path_at_resolution":
                 detail = "every pose reachable at this search resolution was tried without reaching the goal"
@@ -550,28 +588,27 @@ class _Search:
         estimate = np.repeat(straight[:, :, None], bins, axis=2)
         if table is not None:
             radius = vehicle.min_turn_radius_m
-            reach = table.pos_step * (table.lengths.shape[1] - 1) * radius
+            # heading matters most near the goal; farther out the field dominates
+            reach = min(_TURNING_WINDOW_RADII, table.pos_step * (table.lengths.shape[1] - 1)) * radius
             c0 = max(0, int((gx - reach - grid.origin_m[0]) / lat))
             c1 = min(cols_c, int((gx + reach - grid.origin_m[0]) / lat) + 1)
             r0 = max(0, int((top - gy - reach) / lat))
             r1 = min(rows_c, int((top - gy + reach) / lat) + 1)
             if r0 < r1 and c0 < c1:
-                dx = centre_x[None, c0:c1, None] - gx
-                dy = centre_y[r0:r1, None, None] - gy
+                dx = centre_x[None, c0:c1] - gx
+                dy = centre_y[r0:r1, None] - gy
                 cg, sg = math.cos(gh), math.sin(gh)
                 u = (cg * dx + sg * dy) / radius
                 v = (-sg * dx + cg * dy) / radius
-                u, v, rel = np.broadcast_arrays(u, v, rel_heading[None, None, :])
-                turning = table.lookup(u, v, rel) * radius
+                turning = table.lookup_separable(u, v, rel_heading).astype(np.float64) * radius
                 np.maximum(h[r0:r1, c0:c1], turning, out=h[r0:r1, c0:c1])
-                nearest = turning_table(table.kind).lookup(u, v, rel) * radius
-                np.maximum(estimate[r0:r1, c0:c1], nearest, out=estimate[r0:r1, c0:c1])
+                np.maximum(estimate[r0:r1, c0:c1], turning, out=estimate[r0:r1, c0:c1])
         if settings.use_heuristic_field:
             slack_m = 2.0 * lat + 0.5
             worthy = estimate + slack_m >= base[:, :, None]
         else:
             worthy = np.ones(h.shape, dtype=bool)
-        return h.ravel(), worthy.ravel().tolist()
+        return h.ravel(), worthy.ravel()
 
     # -------------------------------------------------------------- output
     def _assemble(self, finish, node_x, node_y, node_k, node_parent, node_prim, prims) -> PlannedPath:

@@ -50,6 +50,9 @@ class SearchSettings:
         when far from the goal; near it (``shot_near_m``) every expansion.
     shot_near_m : float or None
         Distance from the goal within which every expansion tries a shot (default 4 min turn radii).
+    shot_candidates : int
+        How many of the shortest analytic curves a shot tries, shortest first, before
+        it gives up (the shortest often grazes an obstacle where the next one does not).
     goal_tolerance_m, goal_tolerance_deg : float
         How close the last pose must come to the goal.
     output_step_m : float
@@ -64,6 +67,11 @@ class SearchSettings:
     use_heuristic_field, use_turning_heuristic, use_analytic_shots : bool
         Switch off parts of the method; all off gives the plain textbook mode
         (Euclidean heuristic only) used as the benchmark baseline.
+    goal_test_lattice : bool
+        Also stop on reaching the goal's lattice cell and heading bin, the goal test of
+        grid A*. Without analytic shots a search seldom lands within the goal tolerance,
+        so the plain baseline uses this; its path then ends up to a lattice cell short of
+        the goal and is for measurement only, not for driving.
     """
 
     heading_bins: int = 36
@@ -81,6 +89,7 @@ class SearchSettings:
     max_time_s: float = 10.0
     shot_interval: int = 8
     shot_near_m: float | None = None
+    shot_candidates: int = 1
     goal_tolerance_m: float = 0.2
     goal_tolerance_deg: float = 5.0
     output_step_m: float = 0.25
@@ -89,6 +98,7 @@ class SearchSettings:
     use_heuristic_field: bool = True
     use_turning_heuristic: bool = True
     use_analytic_shots: bool = True
+    goal_test_lattice: bool = False
 
     def __post_init__(self) -> None:
         def number(name: str, low: float, high: float = math.inf, *, optional: bool = False) -> None:
@@ -100,7 +110,7 @@ class SearchSettings:
             if not low <= value <= high:
                 raise SearchSettingsError(f"search setting {name} must be in [{low}, {high}], got {value}")
 
-        for name in ("heading_bins", "steer_levels", "max_expansions", "shot_interval"):
+        for name in ("heading_bins", "steer_levels", "max_expansions", "shot_interval", "shot_candidates"):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, int):
                 raise SearchSettingsError(f"search setting {name} must be a whole number, got {value!r}")
@@ -108,6 +118,7 @@ class SearchSettings:
         number("steer_levels", 1, 8)
         number("max_expansions", 1, 10**9)
         number("shot_interval", 1, 10**6)
+        number("shot_candidates", 1, 64)
         number("step_m", 1e-3, 100.0, optional=True)
         number("lattice_cell_m", 1e-3, 100.0, optional=True)
         number("reverse_cost_factor", 1.0, 100.0)
@@ -122,7 +133,7 @@ class SearchSettings:
         number("goal_tolerance_deg", 1e-6, 180.0)
         number("output_step_m", 1e-3, 0.25)
         number("heuristic_weight", 1.0, 10.0)
-        for name in ("allow_reverse", "refine_on_exhaustion", "use_heuristic_field", "use_turning_heuristic", "use_analytic_shots"):
+        for name in ("allow_reverse", "refine_on_exhaustion", "goal_test_lattice", "use_heuristic_field", "use_turning_heuristic", "use_analytic_shots"):
             if not isinstance(getattr(self, name), bool):
                 raise SearchSettingsError(f"search setting {name} must be true or false")
 
@@ -133,7 +144,8 @@ class SearchSettings:
     def plain(self) -> "SearchSettings":
         """The textbook baseline: same search, Euclidean heuristic only, no shots."""
         return replace(
-            self, use_heuristic_field=False, use_turning_heuristic=False, use_analytic_shots=False
+            self, use_heuristic_field=False, use_turning_heuristic=False, use_analytic_shots=False,
+            heuristic_weight=1.0, goal_test_lattice=True,
         )
 
     @classmethod
