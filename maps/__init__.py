@@ -12,7 +12,7 @@ This package imports no other veer package.
 from .errors import GridMessageError, MapError, MapFormatError, MapSettingsError, MapTooLargeError
 from .grid import DEFAULT_MAX_CELLS, FREE, OCCUPIED, UNKNOWN, OccupancyGrid
 from .images import PNG_SIGNATURE, pixels_on_8bit_scale, read_image, read_pgm, read_png
-from .inflate import InflatedGrid, clearance_field_m, inflate
+from .inflate import InflatedGrid, clearance_field_m, inflate, update_clearance_m
 from .load import GRID_ENCODINGS, classify, grid_from_message, load_map
 from .settings import SIDECAR_KEYS, MapSettings, read_sidecar, sidecar_path_for
 
@@ -32,6 +32,7 @@ __all__ = [
     "PNG_SIGNATURE",
     "SIDECAR_KEYS",
     "UNKNOWN",
+    "update_clearance_m",
     "classify",
     "clearance_field_m",
     "grid_from_message",

@@ -48,7 +48,7 @@ from . import _checks
 from .errors import MapSettingsError
 from .grid import OccupancyGrid
 
-__all__ = ["InflatedGrid", "clearance_field_m", "inflate"]
+__all__ = ["InflatedGrid", "clearance_field_m", "inflate", "update_clearance_m"]
 
 
 def clearance_field_m(grid: OccupancyGrid) -> np.ndarray:
@@ -199,3 +199,60 @@ def inflate(
     blocked = clearance_m < threshold_32
     blocked.flags.writeable = False
     return InflatedGrid(grid=grid, radius_m=radius_m, margin_m=margin_m, clearance_m=clearance_m, blocked=blocked)
+
+
+def update_clearance_m(
+    old_grid: OccupancyGrid, old_clearance_m: np.ndarray, new_grid: OccupancyGrid, *, reach_m: float
+) -> tuple[np.ndarray, tuple[int, int, int, int] | None]:
+    """Clearance field of ``new_grid``, recomputed only around the cells that changed.
+
+    The window of changed cells, grown by ``reach_m``, is recomputed from a patch grown
+    by a further ``reach_m``: inside the window every clearance below ``reach_m`` is then
+    exact (its nearest blocked cell lies within the patch), larger ones may read high.
+    Callers that only compare clearances with thresholds up to ``reach_m`` (inflation,
+    proximity costs) get the same answers as from :func:`clearance_field_m`.
+
+    Returns
+    -------
+    (clearance_m, window)
+        The new field (read-only) and the (row0, row1, col0, col1) window recomputed,
+        or None when nothing changed. A grid of other geometry is computed in full.
+    """
+    reach_m = _checks.real_number(reach_m, "reach_m", MapSettingsError)
+    same_geometry = (
+        old_grid.classes.shape == new_grid.classes.shape
+        and old_grid.cell_size_m == new_grid.cell_size_m
+        and tuple(old_grid.origin_m) == tuple(new_grid.origin_m)
+        and old_clearance_m.shape == new_grid.classes.shape
+    )
+    if not same_geometry:
+        return clearance_field_m(new_grid), (0, new_grid.rows, 0, new_grid.cols)
+    changed = old_grid.blocked != new_grid.blocked
+    rows_changed = np.flatnonzero(changed.any(axis=1))
+    if rows_changed.size == 0:
+        return old_clearance_m, None
+    cols_changed = np.flatnonzero(changed.any(axis=0))
+    grow = int(math.ceil(reach_m / new_grid.cell_size_m)) + 1
+    rows, cols = new_grid.rows, new_grid.cols
+    r0, r1 = max(0, rows_changed[0] - grow), min(rows, rows_changed[-1] + 1 + grow)
+    c0, c1 = max(0, cols_changed[0] - grow), min(cols, cols_changed[-1] + 1 + grow)
+    p0, p1 = max(0, r0 - grow), min(rows, r1 + grow)
+    q0, q1 = max(0, c0 - grow), min(cols, c1 + grow)
+    # the patch and a ring around it: the ring is the map's (blocked) outside where the
+    # patch meets the map's edge, and counts as open elsewhere (it lies beyond reach_m)
+    patch = np.ones((p1 - p0 + 2, q1 - q0 + 2), dtype=np.uint8)
+    np.logical_not(new_grid.blocked[p0:p1, q0:q1], out=patch[1:-1, 1:-1].view(np.bool_))
+    if p0 == 0:
+        patch[0, :] = 0
+    if p1 == rows:
+        patch[-1, :] = 0
+    if q0 == 0:
+        patch[:, 0] = 0
+    if q1 == cols:
+        patch[:, -1] = 0
+    distance = cv2.distanceTransform(patch, cv2.DIST_L2, cv2.DIST_MASK_PRECISE)
+    clearance = np.array(old_clearance_m, dtype=np.float32, copy=True)
+    inner = distance[1 + r0 - p0 : 1 + r1 - p0, 1 + c0 - q0 : 1 + c1 - q0]
+    clearance[r0:r1, c0:c1] = inner * np.float32(new_grid.cell_size_m)
+    clearance.flags.writeable = False
+    return clearance, (int(r0), int(r1), int(c0), int(c1))

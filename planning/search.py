@@ -17,7 +17,6 @@ same grid pays for them once. It holds no sockets and no messages.
 from __future__ import annotations
 
 import heapq
-from array import array
 import logging
 import math
 import threading
@@ -27,7 +26,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from veer.maps import OccupancyGrid
+from veer.maps import OccupancyGrid, update_clearance_m
 from veer.planning import curves
 from veer.planning.collision import FootprintChecker
 from veer.planning.errors import NoPath, PoseError
@@ -75,7 +74,7 @@ class Planner:
     Examples
     --------
     >>> import numpy as np
-    >>> from veer.maps import OccupancyGrid
+    >>> from veer.maps import OccupancyGrid, update_clearance_m
     >>> grid = OccupancyGrid(np.zeros((200, 300), np.uint8), 0.1, (0.0, 0.0))
     >>> from veer.planning.vehicle import EXAMPLE_VEHICLE
     >>> path = Planner(EXAMPLE_VEHICLE).plan(grid, (5.0, 10.0, 0.0), (25.0, 10.0, 0.0))
@@ -105,7 +104,8 @@ class Planner:
         t0 = time.perf_counter()
         cs = grid.cell_size_m
         sample_step = cs / 2.0
-        checker = FootprintChecker(grid, self.vehicle, sample_step_m=sample_step, reach_m=step)
+        clearance = self._refreshed_clearance(grid, settings)
+        checker = FootprintChecker(grid, self.vehicle, sample_step_m=sample_step, reach_m=step, clearance_m=clearance)
         lattice = settings.lattice_cell_m or step / 2.0
         factor = max(1, int(round(lattice / cs)))
         open_coarse = coarse_open_mask(checker.inflated.blocked, factor)
@@ -124,6 +124,27 @@ class Planner:
             while len(self._grids) > self.cache_size:
                 self._grids.popitem(last=False)
         return context
+
+    def _refreshed_clearance(self, grid: OccupancyGrid, settings: SearchSettings) -> np.ndarray | None:
+        """The clearance field of ``grid`` updated from the last grid of the same geometry.
+
+        A robot's map mostly changes in a few places between updates; recomputing only
+        around them (``veer.maps.update_clearance_m``) keeps a replan on a fresh grid
+        cheap. Exact for every clearance the collision mask and costs read.
+        """
+        with self._lock:
+            previous = next(
+                (c for c in reversed(self._grids.values())
+                 if c.grid.classes.shape == grid.classes.shape
+                 and c.grid.cell_size_m == grid.cell_size_m and c.grid.origin_m == grid.origin_m),
+                None,
+            )
+        if previous is None:
+            return None
+        checker = previous.checker
+        reach = checker.circle_radius_m + checker.inflated.margin_m + settings.clearance_range_m + grid.cell_size_m
+        clearance, _ = update_clearance_m(previous.grid, checker.inflated.clearance_m, grid, reach_m=reach)
+        return clearance
 
     def _field(self, context: GridContext, goal_cell: tuple[int, int]) -> HolonomicField:
         key = (context.grid.map_id, context.lattice_factor, goal_cell)
@@ -289,6 +310,28 @@ def _densify(poses: np.ndarray, step_m: float) -> tuple[np.ndarray, np.ndarray]:
     return np.vstack(out), np.concatenate(owner)
 
 
+@dataclass(frozen=True)
+class _HeuristicTable:
+    """h and shot-worthiness per coarse cell, with per-heading values in a window near the goal.
+
+    Fields are memoryviews / bytes so the search loop reads plain Python numbers.
+    """
+
+    base_h: memoryview  # per cell
+    base_worthy: bytes  # per cell
+    window_offset: memoryview  # per cell: index of its first heading in window_*, or -1
+    window_h: memoryview  # per window cell and heading
+    window_worthy: bytes
+
+    def h(self, cell: int, k: int) -> float:
+        off = self.window_offset[cell]
+        return self.window_h[off + k] if off >= 0 else self.base_h[cell]
+
+    def worthy(self, cell: int, k: int) -> bool:
+        off = self.window_offset[cell]
+        return bool(self.window_worthy[off + k] if off >= 0 else self.base_worthy[cell])
+
+
 class _Search:
     """One run of hybrid A*; all state local, so concurrent plans never share it."""
 
@@ -320,6 +363,10 @@ class _Search:
         radius = vehicle.min_turn_radius_m
         few = curves.reeds_shepp_shortest_few if settings.allow_reverse else curves.dubins_shortest_few
         for path in few((x, y, h), self.goal, radius, settings.shot_candidates):
+            # most shots fail: a sparse pass (any hit is a real hit) rejects them cheaply
+            sparse = path.sample((x, y, h), self.context.lattice_cell_m)
+            if not checker.poses_clear(sparse[1:, 0], sparse[1:, 1], sparse[1:, 2]).all():
+                continue
             samples = path.sample((x, y, h), checker.sample_step_m)
             if not checker.poses_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]).all():
                 continue
@@ -441,11 +488,10 @@ class _Search:
         # lattice key -> node id of the best open node there, or CLOSED once expanded
         state: dict[int, int] = {start_key: 0}
         CLOSED = -1
-        h_values, worthy = self._heuristic_table(context, field, table, rel_heading)
-        h_flat = array("d", h_values.tobytes())  # plain-float reads in the loop
-        shot_worthy = worthy.astype(np.uint8).tobytes()
-        prox = array("d", prox_coarse.tobytes())
-        h0 = h_flat[start_key]
+        heur = self._heuristic_table(context, field, table, rel_heading)
+        base_h, window_offset, window_h = heur.base_h, heur.window_offset, heur.window_h
+        prox = memoryview(np.ascontiguousarray(prox_coarse, dtype=np.float64))
+        h0 = heur.h(start_key // bins, 0)
         heap = [(h0, 0)]  # (f, node id): ids rise, so ties go to the older node, never compare poses
         heappush, heappop = heapq.heappush, heapq.heappop
         goal_key = None
@@ -494,7 +540,7 @@ class _Search:
                 finish = (i, None)
                 break
             # shots every shot_interval expansions, more often as the goal nears
-            if use_shots and shot_worthy[key] and (
+            if use_shots and heur.worthy(key // bins, k) and (
                 expansions % (shot_interval if dist_goal > shot_near else
                               max(1, int(shot_interval * dist_goal / shot_near))) == 0
             ):
@@ -539,7 +585,8 @@ class _Search:
                 node_prim.append(p)
                 node_key.append(key2)
                 state[key2] = n
-                heappush(heap, (g2 + weight * h_flat[key2], n))
+                off = window_offset[cell]
+                heappush(heap, (g2 + weight * (window_h[off + k2] if off >= 0 else base_h[cell]), n))
                 generated += 1
 
         self.stats.update(
@@ -559,16 +606,17 @@ class _Search:
         log.debug("plan %s -> %s: %s", self.start, self.goal, path.stats)
         return path
 
-    def _heuristic_table(self, context: GridContext, field: HolonomicField, table, rel_heading) -> np.ndarray:
-        """h, and whether a shot is worth trying, for every lattice key (cell * bins + heading), flat.
+    def _heuristic_table(self, context: GridContext, field: HolonomicField, table, rel_heading) -> "_HeuristicTable":
+        """h, and whether a shot is worth trying, for every lattice cell and heading.
 
         h is the holonomic field (or, in plain mode, the straight-line distance) at each
-        coarse cell, raised near the goal to the turning-table length for each heading.
-        A shot is worth trying from a key when the shortest obstacle-free curve (table
-        estimate, or the straight line beyond the table) is not clearly shorter than the
-        obstacle-aware distance: otherwise obstacles stand in the curve's way and the shot
-        would only be sampled to be rejected. Built once per search, so expanding a node
-        reads both with one index.
+        coarse cell, raised near the goal (a window of the turning table's reach) to the
+        turning-table length for each heading. A shot is worth trying from a key when
+        the shortest obstacle-free curve (table estimate, or the straight line beyond the
+        window) is not clearly shorter than the obstacle-aware distance: otherwise
+        obstacles stand in the curve's way and the shot would only be sampled to be
+        rejected. Per-heading values exist only in the window, so a large map costs one
+        value per cell, not one per cell and heading.
         """
         settings, vehicle = self.settings, self.vehicle
         grid = context.grid
@@ -579,16 +627,18 @@ class _Search:
         top = grid.origin_m[1] + grid.rows * grid.cell_size_m
         centre_x = grid.origin_m[0] + (np.arange(cols_c) + 0.5) * lat
         centre_y = top - (np.arange(rows_c) + 0.5) * lat
-        if settings.use_heuristic_field:
-            base = field.lower_bound_flat.reshape(rows_c, cols_c)
-        else:
-            base = np.hypot(centre_x[None, :] - gx, centre_y[:, None] - gy)
-        h = np.repeat(base[:, :, None], bins, axis=2)
         straight = np.hypot(centre_x[None, :] - gx, centre_y[:, None] - gy)
-        estimate = np.repeat(straight[:, :, None], bins, axis=2)
+        base = field.lower_bound_flat.reshape(rows_c, cols_c) if settings.use_heuristic_field else straight
+        slack_m = 2.0 * lat + 0.5
+        if settings.use_heuristic_field:
+            worthy = straight + slack_m >= base
+        else:
+            worthy = np.ones(base.shape, dtype=bool)
+        window_offset = np.full((rows_c, cols_c), -1, dtype=np.int64)
+        window_h = np.zeros(1)
+        window_worthy = np.zeros(1, dtype=bool)
         if table is not None:
             radius = vehicle.min_turn_radius_m
-            # heading matters most near the goal; farther out the field dominates
             reach = min(_TURNING_WINDOW_RADII, table.pos_step * (table.lengths.shape[1] - 1)) * radius
             c0 = max(0, int((gx - reach - grid.origin_m[0]) / lat))
             c1 = min(cols_c, int((gx + reach - grid.origin_m[0]) / lat) + 1)
@@ -601,14 +651,22 @@ class _Search:
                 u = (cg * dx + sg * dy) / radius
                 v = (-sg * dx + cg * dy) / radius
                 turning = table.lookup_separable(u, v, rel_heading).astype(np.float64) * radius
-                np.maximum(h[r0:r1, c0:c1], turning, out=h[r0:r1, c0:c1])
-                np.maximum(estimate[r0:r1, c0:c1], turning, out=estimate[r0:r1, c0:c1])
-        if settings.use_heuristic_field:
-            slack_m = 2.0 * lat + 0.5
-            worthy = estimate + slack_m >= base[:, :, None]
-        else:
-            worthy = np.ones(h.shape, dtype=bool)
-        return h.ravel(), worthy.ravel()
+                window_base = base[r0:r1, c0:c1, None]
+                window_h = np.maximum(window_base, turning).ravel()
+                estimate = np.maximum(straight[r0:r1, c0:c1, None], turning)
+                if settings.use_heuristic_field:
+                    window_worthy = (estimate + slack_m >= window_base).ravel()
+                else:
+                    window_worthy = np.ones(window_h.shape, dtype=bool)
+                wr, wc = r1 - r0, c1 - c0
+                window_offset[r0:r1, c0:c1] = (np.arange(wr * wc).reshape(wr, wc)) * bins
+        return _HeuristicTable(
+            base_h=memoryview(np.ascontiguousarray(base, dtype=np.float64).ravel()),
+            base_worthy=np.ascontiguousarray(worthy, dtype=np.uint8).ravel().tobytes(),
+            window_offset=memoryview(window_offset.ravel()),
+            window_h=memoryview(np.ascontiguousarray(window_h, dtype=np.float64)),
+            window_worthy=np.ascontiguousarray(window_worthy, dtype=np.uint8).tobytes(),
+        )
 
     # -------------------------------------------------------------- output
     def _assemble(self, finish, node_x, node_y, node_k, node_parent, node_prim, prims) -> PlannedPath:
