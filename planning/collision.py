@@ -105,8 +105,8 @@ class FootprintChecker:
         x_m, y_m, heading_rad = (np.atleast_1d(np.asarray(v, dtype=float)) for v in (x_m, y_m, heading_rad))
         clear = self.circles_clear(x_m, y_m, heading_rad)
         if self.vehicle.has_rectangle and not clear.all():
-            for i in np.flatnonzero(~clear):
-                clear[i] = self.rectangle_clear(x_m[i], y_m[i], heading_rad[i])
+            doubtful = np.flatnonzero(~clear)
+            clear[doubtful] = self.rectangles_clear(x_m[doubtful], y_m[doubtful], heading_rad[doubtful])
         return clear
 
     def first_collision(self, poses: np.ndarray) -> int | None:
@@ -124,7 +124,17 @@ class FootprintChecker:
 
     # ------------------------------------------------------------ exact check
     def rectangle_clear(self, x_m: float, y_m: float, heading_rad: float) -> bool:
-        """Exact test of the (margin-grown) rectangle against the blocked squares near it."""
+        """Exact test of one (margin-grown) rectangle against the blocked squares near it."""
+        return bool(self.rectangles_clear([x_m], [y_m], [heading_rad])[0])
+
+    def rectangles_clear(self, x_m, y_m, heading_rad) -> np.ndarray:
+        """Exact test of (margin-grown) rectangles against the blocked squares near them.
+
+        Separating-axis theorem for two convex polygons: they are disjoint if and only if
+        their projections are disjoint on one of the edge normals (two of the square, two
+        of the rectangle). Vectorised over poses x blocked squares in the poses' window.
+        """
+        x_m, y_m, heading_rad = (np.atleast_1d(np.asarray(v, dtype=float)) for v in (x_m, y_m, heading_rad))
         grid = self.grid
         cs = grid.cell_size_m
         if self._raw_blocked is None:
@@ -135,31 +145,30 @@ class FootprintChecker:
         front = -vehicle.rear_overhang_or_default_m + vehicle.length_m + grow
         half_len = (front - rear) / 2.0
         half_wid = vehicle.width_m / 2.0 + grow
-        c, s = math.cos(heading_rad), math.sin(heading_rad)
         mid = (rear + front) / 2.0
+        c, s = np.cos(heading_rad), np.sin(heading_rad)
         cx, cy = x_m + mid * c, y_m + mid * s
-        extent_x = half_len * abs(c) + half_wid * abs(s)
-        extent_y = half_len * abs(s) + half_wid * abs(c)
-        col0 = int((cx - extent_x - self.left_x_m) * self.inv_cell)
-        col1 = int((cx + extent_x - self.left_x_m) * self.inv_cell)
-        row0 = int((self.top_y_m - (cy + extent_y)) * self.inv_cell)
-        row1 = int((self.top_y_m - (cy - extent_y)) * self.inv_cell)
+        extent_x = half_len * np.abs(c) + half_wid * np.abs(s)
+        extent_y = half_len * np.abs(s) + half_wid * np.abs(c)
+        col0 = int(np.min((cx - extent_x - self.left_x_m) * self.inv_cell))
+        col1 = int(np.max((cx + extent_x - self.left_x_m) * self.inv_cell))
+        row0 = int(np.min((self.top_y_m - (cy + extent_y)) * self.inv_cell))
+        row1 = int(np.max((self.top_y_m - (cy - extent_y)) * self.inv_cell))
+        result = np.zeros(x_m.shape, dtype=bool)
         if row0 < 0 or col0 < 0 or row1 >= self.padded_rows or col1 >= self.padded_cols:
-            return False
-        window = self._raw_blocked[row0 : row1 + 1, col0 : col1 + 1]
-        rows, cols = np.nonzero(window)
+            return result  # reaches beyond the padded border: treat as blocked
+        rows, cols = np.nonzero(self._raw_blocked[row0 : row1 + 1, col0 : col1 + 1])
         if rows.size == 0:
-            return True
-        # centres of the blocked squares, relative to the rectangle's centre
-        qx = self.left_x_m + (cols + col0 + 0.5) * cs - cx
-        qy = self.top_y_m - (rows + row0 + 0.5) * cs - cy
+            result[:] = True
+            return result
         half = cs / 2.0
-        sep_x = np.abs(qx) > extent_x + half
-        sep_y = np.abs(qy) > extent_y + half
-        along = qx * c + qy * s
-        across = -qx * s + qy * c
-        square_on_axis = half * (abs(c) + abs(s))
-        sep_u = np.abs(along) > half_len + square_on_axis
-        sep_v = np.abs(across) > half_wid + square_on_axis
-        touching = ~(sep_x | sep_y | sep_u | sep_v)
-        return not bool(touching.any())
+        # centres of the blocked squares relative to each rectangle's centre: (poses, squares)
+        qx = (self.left_x_m + (cols + col0 + 0.5) * cs)[None, :] - cx[:, None]
+        qy = (self.top_y_m - (rows + row0 + 0.5) * cs)[None, :] - cy[:, None]
+        c2, s2 = c[:, None], s[:, None]
+        separated = np.abs(qx) > (extent_x + half)[:, None]
+        separated |= np.abs(qy) > (extent_y + half)[:, None]
+        square_on_axis = half * (np.abs(c2) + np.abs(s2))
+        separated |= np.abs(qx * c2 + qy * s2) > half_len + square_on_axis
+        separated |= np.abs(-qx * s2 + qy * c2) > half_wid + square_on_axis
+        return separated.all(axis=1)

@@ -555,9 +555,9 @@ class _Search:
             hit = blocked_flat[cells.dot(index_weights)].reshape(n_prims, samples_per_prim).any(axis=1)
             if has_rect and hit.any():
                 for p in np.flatnonzero(hit):
-                    px = x + prims.sample_dx_m[k, p]
-                    py = y + prims.sample_dy_m[k, p]
-                    if checker.poses_clear(px, py, prims.sample_heading_rad[k, p]).all():
+                    if checker.rectangles_clear(
+                        x + prims.sample_dx_m[k, p], y + prims.sample_dy_m[k, p], prims.sample_heading_rad[k, p]
+                    ).all():
                         hit[p] = False
             hit_list = hit.tolist()
             trans = transition[node_prim[i]]
