@@ -10,7 +10,7 @@ This package imports no other veer package.
 """
 
 from .errors import GridMessageError, MapError, MapFormatError, MapSettingsError, MapTooLargeError
-from .grid import DEFAULT_MAX_CELLS, FREE, OCCUPIED, UNKNOWN, OccupancyGrid
+from .grid import DEFAULT_MAX_CELLS, FREE, MAX_CELL_SIZE_M, MIN_CELL_SIZE_M, OCCUPIED, UNKNOWN, OccupancyGrid
 from .images import PNG_SIGNATURE, pixels_on_8bit_scale, read_image, read_pgm, read_png
 from .inflate import InflatedGrid, clearance_field_m, inflate, update_clearance_m
 from .load import GRID_ENCODINGS, classify, grid_from_message, load_map
@@ -27,6 +27,8 @@ __all__ = [
     "MapSettings",
     "MapSettingsError",
     "MapTooLargeError",
+    "MAX_CELL_SIZE_M",
+    "MIN_CELL_SIZE_M",
     "OCCUPIED",
     "OccupancyGrid",
     "PNG_SIGNATURE",

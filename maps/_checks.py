@@ -45,6 +45,24 @@ def positive_number(value: object, field: str, error: type[MapError], where: str
     return number
 
 
+#: Cell sizes veer accepts, metres: a millimetre to a hundred metres. Outside that range
+#: a map is almost surely mis-scaled (a typo in the sidecar or on the command line), and
+#: the planner's per-cell work would overflow memory or floating point.
+MIN_CELL_SIZE_M = 1e-3
+MAX_CELL_SIZE_M = 100.0
+
+
+def cell_size(value: object, field: str, error: type[MapError], where: str = "") -> float:
+    """Return ``value`` as a cell size in metres within [MIN_CELL_SIZE_M, MAX_CELL_SIZE_M]."""
+    number = positive_number(value, field, error, where)
+    if not MIN_CELL_SIZE_M <= number <= MAX_CELL_SIZE_M:
+        raise error(
+            f"{where}{field} must be between {MIN_CELL_SIZE_M} and {MAX_CELL_SIZE_M:g} metres, got {value!r}; "
+            f"check the map's scale"
+        )
+    return number
+
+
 def point_2d(value: object, field: str, error: type[MapError], where: str = "") -> tuple[float, float]:
     """Return ``value`` (a list or tuple of two finite numbers) as a tuple of floats."""
     if not isinstance(value, (list, tuple, np.ndarray)) or np.ndim(value) != 1 or len(value) != 2:

@@ -52,9 +52,10 @@ from functools import cached_property
 import numpy as np
 
 from . import _checks
+from ._checks import MAX_CELL_SIZE_M, MIN_CELL_SIZE_M
 from .errors import MapFormatError, MapSettingsError
 
-__all__ = ["DEFAULT_MAX_CELLS", "FREE", "OCCUPIED", "UNKNOWN", "OccupancyGrid"]
+__all__ = ["DEFAULT_MAX_CELLS", "FREE", "MAX_CELL_SIZE_M", "MIN_CELL_SIZE_M", "OCCUPIED", "UNKNOWN", "OccupancyGrid"]
 
 FREE = 0
 """Cell class of a free cell (uint8)."""
@@ -129,7 +130,7 @@ class OccupancyGrid:
     def __post_init__(self) -> None:
         setattr_ = object.__setattr__
         setattr_(self, "classes", _as_class_array(self.classes))
-        setattr_(self, "cell_size_m", _checks.positive_number(self.cell_size_m, "cell_size_m", MapSettingsError))
+        setattr_(self, "cell_size_m", _checks.cell_size(self.cell_size_m, "cell_size_m", MapSettingsError))
         setattr_(self, "origin_m", _checks.point_2d(self.origin_m, "origin_m", MapSettingsError))
         setattr_(self, "unknown_is", _checks.unknown_is(self.unknown_is, "unknown_is", MapSettingsError))
 

@@ -107,7 +107,7 @@ def load_map(
     sidecar = sidecar_path_for(path)
     settings = read_sidecar(sidecar) if sidecar.is_file() else MapSettings()
     if cell_size_m is not None:
-        cell_size_m = _checks.positive_number(cell_size_m, "cell_size_m override", MapSettingsError)
+        cell_size_m = _checks.cell_size(cell_size_m, "cell_size_m override", MapSettingsError)
         settings = dataclasses.replace(settings, cell_size_m=cell_size_m)
     if settings.cell_size_m is None:
         found = "has no cell_size_m" if sidecar.is_file() else "does not exist"
@@ -171,7 +171,7 @@ def grid_from_message(message: Mapping, *, max_cells: int = DEFAULT_MAX_CELLS) -
             f"grid message: rows x cols = {rows} x {cols} = {rows * cols} cells, more than the {max_cells} veer accepts"
         )
     where = "grid message: "
-    cell_size_m = _checks.positive_number(message["cell_size_m"], "cell_size_m", GridMessageError, where)
+    cell_size_m = _checks.cell_size(message["cell_size_m"], "cell_size_m", GridMessageError, where)
     encoding = message["encoding"]
     if not isinstance(encoding, str) or encoding not in GRID_ENCODINGS:
         raise GridMessageError(f'{where}encoding must be "raw", "png" or "pgm", got {encoding!r}')

@@ -58,7 +58,7 @@ class MapSettings:
     def __post_init__(self) -> None:
         setattr_ = object.__setattr__
         if self.cell_size_m is not None:
-            setattr_(self, "cell_size_m", _checks.positive_number(self.cell_size_m, "cell_size_m", MapSettingsError))
+            setattr_(self, "cell_size_m", _checks.cell_size(self.cell_size_m, "cell_size_m", MapSettingsError))
         setattr_(self, "origin_m", _checks.point_2d(self.origin_m, "origin_m", MapSettingsError))
         for name in ("occupied_below", "free_above"):
             value = _checks.real_number(getattr(self, name), name, MapSettingsError)

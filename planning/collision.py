@@ -25,6 +25,8 @@ from veer.planning.vehicle import Vehicle
 
 __all__ = ["FootprintChecker"]
 
+_RECT_CHUNK = 32  # poses per window in the exact rectangle check
+
 
 class FootprintChecker:
     """Answers "is the footprint clear at these poses?" for one grid and one vehicle.
@@ -135,6 +137,12 @@ class FootprintChecker:
         of the rectangle). Vectorised over poses x blocked squares in the poses' window.
         """
         x_m, y_m, heading_rad = (np.atleast_1d(np.asarray(v, dtype=float)) for v in (x_m, y_m, heading_rad))
+        if len(x_m) > _RECT_CHUNK:
+            # one window per few consecutive poses keeps the poses x squares table small
+            return np.concatenate([
+                self.rectangles_clear(x_m[i : i + _RECT_CHUNK], y_m[i : i + _RECT_CHUNK], heading_rad[i : i + _RECT_CHUNK])
+                for i in range(0, len(x_m), _RECT_CHUNK)
+            ])
         grid = self.grid
         cs = grid.cell_size_m
         if self._raw_blocked is None:
@@ -150,13 +158,19 @@ class FootprintChecker:
         cx, cy = x_m + mid * c, y_m + mid * s
         extent_x = half_len * np.abs(c) + half_wid * np.abs(s)
         extent_y = half_len * np.abs(s) + half_wid * np.abs(c)
-        col0 = int(np.min((cx - extent_x - self.left_x_m) * self.inv_cell))
-        col1 = int(np.max((cx + extent_x - self.left_x_m) * self.inv_cell))
-        row0 = int(np.min((self.top_y_m - (cy + extent_y)) * self.inv_cell))
-        row1 = int(np.max((self.top_y_m - (cy - extent_y)) * self.inv_cell))
+        col_lo = (cx - extent_x - self.left_x_m) * self.inv_cell
+        col_hi = (cx + extent_x - self.left_x_m) * self.inv_cell
+        row_lo = (self.top_y_m - (cy + extent_y)) * self.inv_cell
+        row_hi = (self.top_y_m - (cy - extent_y)) * self.inv_cell
         result = np.zeros(x_m.shape, dtype=bool)
-        if row0 < 0 or col0 < 0 or row1 >= self.padded_rows or col1 >= self.padded_cols:
-            return result  # reaches beyond the padded border: treat as blocked
+        # a rectangle reaching beyond the padded border is blocked (the map's outside is)
+        inside = (row_lo >= 0) & (col_lo >= 0) & (row_hi < self.padded_rows - 1) & (col_hi < self.padded_cols - 1)
+        if not inside.all():
+            if inside.any():
+                result[inside] = self.rectangles_clear(x_m[inside], y_m[inside], heading_rad[inside])
+            return result
+        col0, col1 = int(col_lo.min()), int(col_hi.max())
+        row0, row1 = int(row_lo.min()), int(row_hi.max())
         rows, cols = np.nonzero(self._raw_blocked[row0 : row1 + 1, col0 : col1 + 1])
         if rows.size == 0:
             result[:] = True

@@ -233,6 +233,15 @@ def _cache_dir() -> Path:
     return Path(base)
 
 
+def _curves_digest() -> str:
+    """Short hash of the curve code and table layout: a change to either makes a new cache file."""
+    import hashlib
+
+    digest = hashlib.sha256(Path(curves.__file__).read_bytes())
+    digest.update(f"{_TABLE_VERSION}/{_TABLE_RANGE}/{_TABLE_POS_STEP}/{_TABLE_HEADINGS}".encode())
+    return digest.hexdigest()[:12]
+
+
 def _build_table(kind: str) -> TurningTable:
     n = int(round(_TABLE_RANGE / _TABLE_POS_STEP))
     values = np.arange(n + 1) * _TABLE_POS_STEP
@@ -259,7 +268,7 @@ def turning_table(kind: str, spread: int = 0) -> TurningTable:
         return _tables[key]
     if kind in _tables:
         return _tables[kind]
-    name = f"turning_{kind}_v{_TABLE_VERSION}_{_TABLE_RANGE}_{_TABLE_POS_STEP}_{_TABLE_HEADINGS}.npy"
+    name = f"turning_{kind}_v{_TABLE_VERSION}_{_curves_digest()}_{_TABLE_RANGE}_{_TABLE_POS_STEP}_{_TABLE_HEADINGS}.npy"
     path = _cache_dir() / name
     n = int(round(_TABLE_RANGE / _TABLE_POS_STEP)) + 1
     shape = (n, n, _TABLE_HEADINGS) if kind == "reeds_shepp" else (2 * n - 1, n, _TABLE_HEADINGS)

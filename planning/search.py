@@ -24,6 +24,7 @@ import time
 from collections import OrderedDict
 from dataclasses import dataclass, replace
 
+import cv2
 import numpy as np
 
 from veer.maps import OccupancyGrid, update_clearance_m
@@ -56,7 +57,8 @@ class GridContext:
     checker: FootprintChecker
     lattice_factor: int
     lattice_cell_m: float
-    open_coarse: np.ndarray
+    open_coarse: np.ndarray  # coarse cells open in the collision mask (guides the search)
+    open_coarse_optimistic: np.ndarray  # coarse cells the vehicle might reach (proves enclosure)
     proximity_coarse: np.ndarray  # flat, per coarse cell: extra cost per metre (clearance cost)
     prepare_s: float
 
@@ -109,6 +111,7 @@ class Planner:
         lattice = settings.lattice_cell_m or step / 2.0
         factor = max(1, int(round(lattice / cs)))
         open_coarse = coarse_open_mask(checker.inflated.blocked, factor)
+        open_optimistic = coarse_open_mask(~_optimistic_open(checker, self.vehicle), factor)
         # clearance cost: rises linearly from 0 at clearance_range_m beyond the footprint to
         # clearance_cost_factor at contact; per coarse cell, from its tightest fine cell
         room = checker.inflated.clearance_m - np.float32(checker.circle_radius_m + checker.inflated.margin_m)
@@ -118,7 +121,9 @@ class Planner:
         else:
             prox = np.zeros(open_coarse.shape)
         proximity = np.ascontiguousarray(prox, dtype=np.float64).ravel()
-        context = GridContext(grid, checker, factor, factor * cs, open_coarse, proximity, time.perf_counter() - t0)
+        context = GridContext(
+            grid, checker, factor, factor * cs, open_coarse, open_optimistic, proximity, time.perf_counter() - t0
+        )
         with self._lock:
             self._grids[cache_key] = context
             while len(self._grids) > self.cache_size:
@@ -146,14 +151,15 @@ class Planner:
         clearance, _ = update_clearance_m(previous.grid, checker.inflated.clearance_m, grid, reach_m=reach)
         return clearance
 
-    def _field(self, context: GridContext, goal_cell: tuple[int, int]) -> HolonomicField:
-        key = (context.grid.map_id, context.lattice_factor, goal_cell)
+    def _field(self, context: GridContext, goal_cell: tuple[int, int], optimistic: bool = False) -> HolonomicField:
+        key = (context.grid.map_id, context.lattice_factor, goal_cell, optimistic)
         with self._lock:
             found = self._fields.get(key)
             if found is not None:
                 self._fields.move_to_end(key)
                 return found
-        field = holonomic_field(context.open_coarse, goal_cell, context.lattice_cell_m)
+        mask = context.open_coarse_optimistic if optimistic else context.open_coarse
+        field = holonomic_field(mask, goal_cell, context.lattice_cell_m)
         with self._lock:
             self._fields[key] = field
             while len(self._fields) > 4 * self.cache_size:
@@ -282,6 +288,31 @@ def _finer(settings: SearchSettings) -> SearchSettings | None:
 def plan_path(grid, vehicle, start, goal, settings: SearchSettings = DEFAULT_SEARCH_SETTINGS, **kwargs) -> PlannedPath:
     """One-shot convenience: ``Planner(vehicle, settings).plan(grid, start, goal, **kwargs)``."""
     return Planner(vehicle, settings, cache_size=1).plan(grid, start, goal, **kwargs)
+
+
+def _optimistic_open(checker: FootprintChecker, vehicle: Vehicle) -> np.ndarray:
+    """Cells where the reference point might still be, for any heading: never under-estimated.
+
+    The collision mask is conservative (margins, covering circles); the proof that a goal
+    is enclosed and the 2-D field need the opposite, so that they never close a passage
+    the vehicle fits through. The footprint contains a disc (radius_m, or half the
+    rectangle's width around its centre); wherever that disc fits, the centre-to-centre
+    clearance of its cell is at least its radius less half a cell diagonal. For a
+    rectangle the reference point is then within the centre's offset (plus a cell
+    diagonal for the two cells) of such a cell.
+    """
+    inflated = checker.inflated
+    cs = inflated.grid.cell_size_m
+    if vehicle.has_rectangle:
+        inner_radius = vehicle.width_m / 2.0
+        offset = abs(vehicle.length_m / 2.0 - vehicle.rear_overhang_or_default_m)
+    else:
+        inner_radius, offset = float(vehicle.radius_m), 0.0
+    centre_open = inflated.clearance_m >= np.float32(inner_radius - cs / math.sqrt(2.0))
+    if offset <= 0.0:
+        return centre_open
+    to_open_m = cv2.distanceTransform((~centre_open).astype(np.uint8), cv2.DIST_L2, cv2.DIST_MASK_PRECISE) * cs
+    return to_open_m <= offset + cs * math.sqrt(2.0)
 
 
 def _primitive_step(vehicle: Vehicle, settings: SearchSettings, cell_size_m: float) -> float:
@@ -424,7 +455,12 @@ class _Search:
         t_field = time.perf_counter()
         goal_cell = coarse_cell(gx, gy)
         start_cell = coarse_cell(sx, sy)
+        # the field over the collision mask guides best; where it cannot link start and
+        # goal (tight margins, a rectangle the circles over-cover), the optimistic one
+        # decides whether the goal is really walled in, and guides instead
         field = self.planner._field(context, goal_cell)
+        if not field.reachable(*start_cell):
+            field = self.planner._field(context, goal_cell, optimistic=True)
         field_s = time.perf_counter() - t_field
         if not field.reachable(*start_cell):
             raise NoPath(
@@ -472,6 +508,7 @@ class _Search:
         shot_near = settings.shot_near_m if settings.shot_near_m is not None else 4.0 * max(radius, lattice_m)
         shot_interval = settings.shot_interval
         use_shots = settings.use_analytic_shots
+        shot_accept = settings.shot_accept_ratio
         max_exp = settings.max_expansions
         deadline, cancel = self.deadline, self.cancel
 
@@ -512,20 +549,29 @@ class _Search:
         reason = "no_path_at_resolution"
         finish = None  # (node id, shot or None)
 
+        # collision-free shots become goal entries of the heap at their full cost, so a
+        # shot is only taken once no open node promises better (weighted-A* bound)
+        shot_solutions: list[tuple[int, object]] = []  # (parent node id, curve); heap id -(j + 1)
+        best_shot_cost = math.inf
+        if cancel is not None and cancel.is_set():
+            heap = []
+            reason = "cancelled"
         while heap:
-            i = heappop(heap)[1]
+            f, i = heappop(heap)
+            if i < 0:
+                finish = shot_solutions[-i - 1]
+                break
             key = node_key[i]
             if state[key] != i:  # closed, or superseded by a cheaper node in the same key
                 continue
+            if expansions >= max_exp:
+                reason = "budget_exhausted"
+                break
             state[key] = CLOSED
             expansions += 1
             x, y, k, g = node_x[i], node_y[i], node_k[i], node_g[i]
-            if expansions & 127 == 0:
-                if expansions >= max_exp:
-                    reason = "budget_exhausted"
-                    break
-                now = time.perf_counter()
-                if now > deadline:
+            if expansions & 63 == 0:
+                if time.perf_counter() > deadline:
                     reason = "deadline"
                     break
                 if cancel is not None and cancel.is_set():
@@ -539,16 +585,21 @@ class _Search:
             if key == goal_key:
                 finish = (i, None)
                 break
-            # shots every shot_interval expansions, more often as the goal nears
+            # shots from the start, then every shot_interval expansions, more often near the goal
             if use_shots and heur.worthy(key // bins, k) and (
-                expansions % (shot_interval if dist_goal > shot_near else
-                              max(1, int(shot_interval * dist_goal / shot_near))) == 0
+                expansions == 1
+                or expansions % (shot_interval if dist_goal > shot_near else
+                                 max(1, int(shot_interval * dist_goal / shot_near))) == 0
             ):
                 shots += 1
                 shot = self._shot(x, y, heading)
-                if shot is not None:
-                    finish = (i, shot[0])
-                    break
+                if shot is not None and g + shot[1] < best_shot_cost:
+                    best_shot_cost = g + shot[1]
+                    shot_solutions.append((i, shot[0]))
+                    if best_shot_cost <= shot_accept * f:  # close to the best any open node promises
+                        finish = shot_solutions[-1]
+                        break
+                    heappush(heap, (best_shot_cost, -len(shot_solutions)))
 
             # ---- successors: collision samples of every primitive in one lookup
             cells = (sample_offsets[k] + ((top_p - y) * inv_cell, (x - left_p) * inv_cell)).astype(np.intp)
@@ -593,6 +644,9 @@ class _Search:
             expansions=expansions, generated=generated, shots_tried=shots,
             search_s=round(time.perf_counter() - t_loop, 6),
         )
+        if finish is None and shot_solutions and reason in ("budget_exhausted", "deadline"):
+            finish = shot_solutions[-1]  # out of budget: the best complete path found is still valid
+            self.stats["stopped"] = reason
         if finish is None:
             if not heap and reason == "no_path_at_resolution":
                 detail = "every pose reachable at this search resolution was tried without reaching the goal"

@@ -53,6 +53,11 @@ class SearchSettings:
     shot_candidates : int
         How many of the shortest analytic curves a shot tries, shortest first, before
         it gives up (the shortest often grazes an obstacle where the next one does not).
+    shot_accept_ratio : float
+        A collision-free shot ends the search at once when its total cost is at most this
+        times the f-value of the node it was shot from (the least any open node
+        promises); a dearer one waits in the open list as a finished path, taken when
+        nothing cheaper remains, and is the answer if the budget runs out first.
     goal_tolerance_m, goal_tolerance_deg : float
         How close the last pose must come to the goal.
     output_step_m : float
@@ -90,6 +95,7 @@ class SearchSettings:
     shot_interval: int = 8
     shot_near_m: float | None = None
     shot_candidates: int = 1
+    shot_accept_ratio: float = 1.4
     goal_tolerance_m: float = 0.2
     goal_tolerance_deg: float = 5.0
     output_step_m: float = 0.25
@@ -119,6 +125,7 @@ class SearchSettings:
         number("max_expansions", 1, 10**9)
         number("shot_interval", 1, 10**6)
         number("shot_candidates", 1, 64)
+        number("shot_accept_ratio", 1.0, 100.0)
         number("step_m", 1e-3, 100.0, optional=True)
         number("lattice_cell_m", 1e-3, 100.0, optional=True)
         number("reverse_cost_factor", 1.0, 100.0)

@@ -182,6 +182,8 @@ def load_vehicle(path: str | Path) -> Vehicle:
         text = path.read_text(encoding="utf-8")
     except OSError as error:
         raise VehicleError(f"cannot read vehicle file {path}: {error.strerror or error}") from None
+    except UnicodeDecodeError:
+        raise VehicleError(f"vehicle file {path} is not UTF-8 text; write it as a TOML file") from None
     try:
         values = tomllib.loads(text)
     except tomllib.TOMLDecodeError as error:

@@ -76,6 +76,8 @@ def _check_output_path(value: str | None, flag: str, suffix: str) -> Path | None
     if value is None:
         return None
     path = Path(value)
+    if path.is_dir():
+        raise UsageError(f"veer plan: {flag} {value} is a folder; give a file name ending in {suffix}")
     if path.suffix.lower() != suffix:
         raise UsageError(f"veer plan: {flag} {value}: the file name must end in {suffix}")
     folder = path.parent if str(path.parent) else Path(".")
@@ -86,13 +88,20 @@ def _check_output_path(value: str | None, flag: str, suffix: str) -> Path | None
 
 def run(args) -> int:
     """Carry out ``veer plan``; returns the exit code of the contract."""
-    from veer.maps import MapError, load_map
+    from veer.maps import MAX_CELL_SIZE_M, MIN_CELL_SIZE_M, MapError, load_map
     from veer.planning import EXAMPLE_VEHICLE, NoPath, Planner, PlanningError, SearchSettings, load_vehicle
     from veer.planning.path import no_path_document
     from veer.tools.cli import EXIT_BAD_INPUT, EXIT_NO_PATH, EXIT_OK, UsageError
 
     try:
         out_path = _check_output_path(args.out, "--out", ".json")
+        if args.cell_size is not None and not (
+            math.isfinite(args.cell_size) and MIN_CELL_SIZE_M <= args.cell_size <= MAX_CELL_SIZE_M
+        ):
+            raise UsageError(
+                f"veer plan: --cell-size {args.cell_size:g} is out of range; give the edge of one map cell in "
+                f"metres, between {MIN_CELL_SIZE_M} and {MAX_CELL_SIZE_M:g}"
+            )
         picture_path = _check_output_path(args.picture, "--picture", ".png")
         vehicle = load_vehicle(args.vehicle) if args.vehicle else EXAMPLE_VEHICLE
         grid = load_map(args.map_image, cell_size_m=args.cell_size)
