@@ -547,6 +547,8 @@ def _to_path(pat, mags, r: float, signed_word: bool) -> CurvePath:
 
 def _few_paths(candidates, r: float, signed_word: bool, count: int) -> list[CurvePath]:
     """The ``count`` shortest distinct candidates, shortest first (ties: fewer cusps)."""
+    if count == 1:
+        return [_best_path(candidates, r, signed_word)]
     ordered = sorted(candidates, key=lambda c: (round(c[0], 9), _cusps(c[1], c[2])))
     paths: list[CurvePath] = []
     seen = set()

@@ -42,6 +42,7 @@ __all__ = ["Planner", "GridContext", "plan_path"]
 log = logging.getLogger("veer.planning")
 
 _TWO_PI = 2.0 * math.pi
+_SHOT_SLACK_CELLS = 0.0  # shot gate: curve estimate may fall this many lattice cells (+0.5 m) short
 _TURNING_WINDOW_RADII = 6.0  # turning heuristic applied within this many turn radii of the goal
 
 
@@ -394,20 +395,9 @@ class _Search:
         radius = vehicle.min_turn_radius_m
         few = curves.reeds_shepp_shortest_few if settings.allow_reverse else curves.dubins_shortest_few
         for path in few((x, y, h), self.goal, radius, settings.shot_candidates):
-            # most shots fail: a sparse pass (any hit is a real hit) rejects them cheaply
-            sparse = path.sample((x, y, h), self.context.lattice_cell_m)
-            if not checker.poses_clear(sparse[1:, 0], sparse[1:, 1], sparse[1:, 2]).all():
-                continue
-            samples = path.sample((x, y, h), checker.sample_step_m)
-            if not checker.poses_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]).all():
-                continue
-            cost = 0.0
-            for kind, length in path.segments:
-                cost += abs(length) * (settings.reverse_cost_factor if length < 0 else 1.0) * (
-                    1.0 + (settings.steer_cost_factor if kind != "S" else 0.0)
-                )
-            cost += settings.gear_change_cost_m * path.gear_changes
-            return path, cost
+            found = self._curve_cost(path, (x, y, h))
+            if found is not None:
+                return path, found[0]
         return None
 
     def _turn_in_place_shot(self, x, y, h):
@@ -653,7 +643,7 @@ class _Search:
             else:
                 detail = f"stopped after {expansions} expansions ({reason})"
             raise NoPath(reason, detail, self._finish_stats(field_s=round(field_s, 6)))
-        path = self._assemble(finish, node_x, node_y, node_k, node_parent, node_prim, prims)
+        path = self._assemble(finish, node_x, node_y, node_k, node_g, node_parent, node_prim, prims)
         path.stats = self._finish_stats(
             field_s=round(field_s, 6), prepare_s=round(context.prepare_s, 6), final_poses=len(path.poses)
         )
@@ -683,7 +673,7 @@ class _Search:
         centre_y = top - (np.arange(rows_c) + 0.5) * lat
         straight = np.hypot(centre_x[None, :] - gx, centre_y[:, None] - gy)
         base = field.lower_bound_flat.reshape(rows_c, cols_c) if settings.use_heuristic_field else straight
-        slack_m = 2.0 * lat + 0.5
+        slack_m = _SHOT_SLACK_CELLS * lat + 0.5
         if settings.use_heuristic_field:
             worthy = straight + slack_m >= base
         else:
@@ -723,55 +713,164 @@ class _Search:
         )
 
     # -------------------------------------------------------------- output
-    def _assemble(self, finish, node_x, node_y, node_k, node_parent, node_prim, prims) -> PlannedPath:
-        settings = self.settings
-        out_step = settings.output_step_m
-        sh = self.start[2]
-        bin_rad = settings.heading_bin_rad
+    def _curve_cost(self, path, start) -> tuple[float, np.ndarray] | None:
+        """(cost, dense samples) of an analytic curve from ``start``, or None if it collides.
+
+        The cost model of the search: length with the reverse factor, steering on arcs,
+        gear changes, and the clearance cost read along the samples.
+        """
+        settings, checker = self.settings, self.context.checker
+        sparse = path.sample(start, self.context.lattice_cell_m)
+        if not checker.poses_clear(sparse[1:, 0], sparse[1:, 1], sparse[1:, 2]).all():
+            return None
+        samples = path.sample(start, checker.sample_step_m)
+        if not checker.poses_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]).all():
+            return None
+        cost = settings.gear_change_cost_m * path.gear_changes
+        for kind, length in path.segments:
+            cost += abs(length) * (settings.reverse_cost_factor if length < 0 else 1.0) * (
+                1.0 + (settings.steer_cost_factor if kind != "S" else 0.0)
+            )
+        context = self.context
+        grid = context.grid
+        if settings.clearance_cost_factor > 0:
+            top = grid.origin_m[1] + grid.rows * grid.cell_size_m
+            inv_lat = 1.0 / context.lattice_cell_m
+            rows_c, cols_c = context.open_coarse.shape
+            lr = np.clip(((top - samples[:, 1]) * inv_lat).astype(np.intp), 0, rows_c - 1)
+            lc = np.clip(((samples[:, 0] - grid.origin_m[0]) * inv_lat).astype(np.intp), 0, cols_c - 1)
+            step = np.hypot(np.diff(samples[:, 0]), np.diff(samples[:, 1]))
+            cost += float((context.proximity_coarse[(lr * cols_c + lc)[1:]] * step).sum())
+        return cost, samples
+
+    def _pieces(self, finish, node_x, node_y, node_k, node_g, node_parent, node_prim, prims):
+        """The found path as pieces between waypoints, with the cost to reach each waypoint.
+
+        Returns (waypoints, pieces): waypoints are (x, y, heading, g); piece i joins
+        waypoint i to i + 1 and is ("prim", Primitive), ("curve", CurvePath) or
+        ("turn_in_place", shot pieces).
+        """
+        sh, bin_rad = self.start[2], self.settings.heading_bin_rad
         i, shot = finish
         chain = []
         while i >= 0:
             chain.append(i)
             i = node_parent[i]
         chain.reverse()
+        waypoints = [(node_x[n], node_y[n], sh + node_k[n] * bin_rad, node_g[n]) for n in chain]
+        waypoints[0] = (*self.start, 0.0)
+        pieces = [("prim", prims.primitives[node_prim[b]]) for b in chain[1:]]
+        if shot is not None:
+            last = waypoints[-1]
+            if isinstance(shot, list):
+                pieces.append(("turn_in_place", shot))
+                waypoints.append((*self.goal, last[3]))
+            else:
+                found = self._curve_cost(shot, last[:3])
+                cost = found[0] if found is not None else 0.0
+                pieces.append(("curve", shot))
+                waypoints.append((*self.goal, last[3] + cost))
+        return waypoints, pieces
+
+    def _shortcut(self, waypoints, pieces):
+        """Replace runs of pieces by one analytic curve where that is clear and no dearer.
+
+        Greedy from the start: from waypoint i try the curves to i + 2, i + 4, i + 8, ...
+        and keep the farthest that is collision-free, costs no more than the run it
+        replaces (same cost model), and keeps the gears at both ends. Curves keep the
+        curvature limit, so the path stays drivable; lattice zig-zags straighten out.
+        """
+        settings = self.settings
+        radius = self.vehicle.min_turn_radius_m
+        curve_fn = curves.reeds_shepp_shortest if settings.allow_reverse else curves.dubins_shortest
+
+        def gears(piece):
+            kind, obj = piece
+            if kind == "prim":
+                return [obj.gear] if obj.length_m else []
+            if kind == "curve":
+                return [1 if length > 0 else -1 for _, length in obj.segments if abs(length) > 1e-9]
+            return []
+
+        def changes(sequence):
+            return sum(1 for a, b in zip(sequence, sequence[1:]) if a != b)
+
+        out_waypoints, out_pieces = [waypoints[0]], []
+        i, last = 0, len(waypoints) - 1
+        while i < last:
+            best = None
+            span = 2
+            while i + 1 < last:
+                j = min(i + span, last)
+                original = [g for piece in pieces[i:j] for g in gears(piece)]
+                if any(kind == "turn_in_place" for kind, _ in pieces[i:j]) or not original:
+                    break
+                curve = curve_fn(waypoints[i][:3], waypoints[j][:3], radius)
+                replacement = gears(("curve", curve))
+                ok = (
+                    replacement
+                    and replacement[0] == original[0]
+                    and replacement[-1] == original[-1]
+                    and changes(replacement) <= changes(original)
+                )
+                found = self._curve_cost(curve, waypoints[i][:3]) if ok else None
+                if found is None or found[0] > waypoints[j][3] - waypoints[i][3] + 1e-9:
+                    break
+                best = (j, curve)
+                if j == last:
+                    break
+                span *= 2
+            if best is None:
+                out_pieces.append(pieces[i])
+                out_waypoints.append(waypoints[i + 1])
+                i += 1
+            else:
+                j, curve = best
+                out_pieces.append(("curve", curve))
+                out_waypoints.append(waypoints[j])
+                i = j
+        return out_waypoints, out_pieces
+
+    def _assemble(self, finish, node_x, node_y, node_k, node_g, node_parent, node_prim, prims) -> PlannedPath:
+        settings = self.settings
+        out_step = settings.output_step_m
+        waypoints, pieces = self._pieces(finish, node_x, node_y, node_k, node_g, node_parent, node_prim, prims)
+        if settings.smooth and not self.vehicle.turns_in_place and len(pieces) > 1:
+            waypoints, pieces = self._shortcut(waypoints, pieces)
         poses = [np.array([[self.start[0], self.start[1], self.start[2], 0.0]])]
         curvature = [np.array([0.0])]
-        for a, b in zip(chain[:-1], chain[1:]):
-            prim = prims.primitives[node_prim[b]]
-            x, y, h = node_x[a], node_y[a], sh + node_k[a] * bin_rad
-            if prim.rotation_rad:
-                n = max(1, int(math.ceil(abs(prim.rotation_rad) / math.radians(5.0))))
-                hs = h + prim.rotation_rad * np.arange(1, n + 1) / n
+        for (x, y, h, _), (kind, obj), end in zip(waypoints[:-1], pieces, waypoints[1:]):
+            if kind == "prim" and obj.rotation_rad:
+                n = max(1, int(math.ceil(abs(obj.rotation_rad) / math.radians(5.0))))
+                hs = h + obj.rotation_rad * np.arange(1, n + 1) / n
                 seg = np.column_stack((np.full(n, x), np.full(n, y), hs, np.ones(n)))
-                kappa = np.full(n, math.copysign(math.inf, prim.rotation_rad))
-            else:
-                n = max(1, int(math.ceil(abs(prim.length_m) / out_step - 1e-9)))
-                seg = arc_poses(x, y, h, prim.length_m, prim.curvature_per_m, np.arange(1, n + 1) / n)
-                seg = np.column_stack((seg, np.full(n, float(prim.gear))))
+                kappa = np.full(n, math.copysign(math.inf, obj.rotation_rad))
+            elif kind == "prim":
+                n = max(1, int(math.ceil(abs(obj.length_m) / out_step - 1e-9)))
+                seg = arc_poses(x, y, h, obj.length_m, obj.curvature_per_m, np.arange(1, n + 1) / n)
+                seg = np.column_stack((seg, np.full(n, float(obj.gear))))
                 # signed geometric curvature: heading change per metre travelled
-                kappa = np.full(n, prim.turn_bins * bin_rad / abs(prim.length_m))
-            # snap the end exactly onto the node (removes round-off between tables and arcs)
-            seg[-1, 0], seg[-1, 1] = node_x[b], node_y[b]
-            poses.append(seg)
-            curvature.append(kappa)
-        if shot is not None:
-            last = poses[-1][-1]
-            if isinstance(shot, list):  # turn-in-place shot pieces
-                for kind, amount, dense in shot:
-                    if kind == "rotate":
+                kappa = np.full(n, obj.turn_bins * settings.heading_bin_rad / abs(obj.length_m))
+                # snap the end exactly onto the node (removes round-off between tables and arcs)
+                seg[-1, 0], seg[-1, 1] = end[0], end[1]
+            elif kind == "curve":
+                samples = obj.sample((x, y, h), out_step)
+                seg = samples[1:]
+                kappa = _curve_curvatures(obj, seg, (x, y, h))
+            else:  # turn-in-place shot: rotate, drive straight, rotate
+                segs, kappas = [], []
+                for part, amount, dense in obj:
+                    if part == "rotate":
                         n = max(1, int(math.ceil(abs(amount) / math.radians(5.0))))
-                        sel = dense[np.linspace(0, len(dense) - 1, n + 1).astype(int)[1:]]
-                        kappa = np.full(len(sel), math.copysign(math.inf, amount) if amount else 0.0)
+                        kappas.append(np.full(n, math.copysign(math.inf, amount) if amount else 0.0))
                     else:
                         n = max(1, int(math.ceil(amount / out_step)))
-                        sel = dense[np.linspace(0, len(dense) - 1, n + 1).astype(int)[1:]]
-                        kappa = np.zeros(len(sel))
-                    poses.append(np.column_stack((sel, np.ones(len(sel)))))
-                    curvature.append(kappa)
-            else:
-                samples = shot.sample((float(last[0]), float(last[1]), float(last[2])), out_step)
-                poses.append(samples[1:])
-                curvature.append(_curve_curvatures(shot, samples[1:], last))
+                        kappas.append(np.zeros(n))
+                    sel = dense[np.linspace(0, len(dense) - 1, n + 1).astype(int)[1:]]
+                    segs.append(np.column_stack((sel, np.ones(len(sel)))))
+                seg, kappa = np.vstack(segs), np.concatenate(kappas)
+            poses.append(seg)
+            curvature.append(kappa)
         all_poses = np.vstack(poses)
         all_kappa = np.concatenate(curvature)
         # drop zero-length repeats (a shot from the exact goal, cusp duplicates)

@@ -72,6 +72,10 @@ class SearchSettings:
     use_heuristic_field, use_turning_heuristic, use_analytic_shots : bool
         Switch off parts of the method; all off gives the plain textbook mode
         (Euclidean heuristic only) used as the benchmark baseline.
+    smooth : bool
+        Shorten the found path by replacing runs of primitives with single Reeds-Shepp
+        (Dubins) curves where these are collision-free and no dearer; curvature stays
+        within the limit.
     goal_test_lattice : bool
         Also stop on reaching the goal's lattice cell and heading bin, the goal test of
         grid A*. Without analytic shots a search seldom lands within the goal tolerance,
@@ -89,7 +93,7 @@ class SearchSettings:
     steer_cost_factor: float = 0.05
     steer_change_cost_m: float = 0.1
     clearance_cost_factor: float = 0.3
-    clearance_range_m: float = 0.5
+    clearance_range_m: float = 1.0
     max_expansions: int = 200_000
     max_time_s: float = 10.0
     shot_interval: int = 8
@@ -105,6 +109,7 @@ class SearchSettings:
     use_turning_heuristic: bool = True
     use_analytic_shots: bool = True
     goal_test_lattice: bool = False
+    smooth: bool = True
 
     def __post_init__(self) -> None:
         def number(name: str, low: float, high: float = math.inf, *, optional: bool = False) -> None:
@@ -140,7 +145,7 @@ class SearchSettings:
         number("goal_tolerance_deg", 1e-6, 180.0)
         number("output_step_m", 1e-3, 0.25)
         number("heuristic_weight", 1.0, 10.0)
-        for name in ("allow_reverse", "refine_on_exhaustion", "goal_test_lattice", "use_heuristic_field", "use_turning_heuristic", "use_analytic_shots"):
+        for name in ("allow_reverse", "refine_on_exhaustion", "goal_test_lattice", "smooth", "use_heuristic_field", "use_turning_heuristic", "use_analytic_shots"):
             if not isinstance(getattr(self, name), bool):
                 raise SearchSettingsError(f"search setting {name} must be true or false")
 
@@ -152,7 +157,7 @@ class SearchSettings:
         """The textbook baseline: same search, Euclidean heuristic only, no shots."""
         return replace(
             self, use_heuristic_field=False, use_turning_heuristic=False, use_analytic_shots=False,
-            heuristic_weight=1.0, goal_test_lattice=True,
+            heuristic_weight=1.0, goal_test_lattice=True, smooth=False,
         )
 
     @classmethod
