@@ -17,6 +17,7 @@ same grid pays for them once. It holds no sockets and no messages.
 from __future__ import annotations
 
 import heapq
+from itertools import compress
 import logging
 import math
 import threading
@@ -530,10 +531,16 @@ class _Search:
         samples_per_prim = circle_cols.shape[2]
         sample_offsets = np.stack((-circle_rows, circle_cols), axis=-1).reshape(bins, -1, 2)
         index_weights = np.array([width_p, 1], dtype=np.intp)
-        end_dx_list = end_dx.tolist()
-        end_dy_list = end_dy.tolist()
-        motion_len_list = motion_len.tolist()
-        prim_range = range(n_prims)
+        # per heading index, per primitive: (index, dx_m, dy_m, d_row, d_col in lattice
+        # cells, end heading index, length_m), so the successor loop reads one tuple
+        prim_rows = [
+            [
+                (p, float(end_dx[k, p]), float(end_dy[k, p]), float(end_dy[k, p] * inv_lat),
+                 float(end_dx[k, p] * inv_lat), int(end_k[k, p]), float(motion_len[p]))
+                for p in range(n_prims)
+            ]
+            for k in range(bins)
+        ]
         t_loop = time.perf_counter()
         expansions = generated = shots = 0
         reason = "no_path_at_resolution"
@@ -600,26 +607,22 @@ class _Search:
                         x + prims.sample_dx_m[k, p], y + prims.sample_dy_m[k, p], prims.sample_heading_rad[k, p]
                     ).all():
                         hit[p] = False
-            hit_list = hit.tolist()
             trans = transition[node_prim[i]]
-            dx_row, dy_row, k_row = end_dx_list[k], end_dy_list[k], end_k_list[k]
-            for p in prim_range:
-                if hit_list[p]:
-                    continue
-                ex = x + dx_row[p]
-                ey = y + dy_row[p]
-                cell = int((top - ey) * inv_lat) * cols_c + int((ex - ox) * inv_lat)
-                k2 = k_row[p]
+            # y grows upwards, rows downwards: lattice row of y + dy is (a - dy) / lattice
+            a = (top - y) * inv_lat
+            b = (x - ox) * inv_lat
+            for p, dx, dy, dr, dc, k2, length in compress(prim_rows[k], (~hit).tolist()):
+                cell = int(a - dr) * cols_c + int(b + dc)
                 key2 = cell * bins + k2
                 other = state.get(key2)
                 if other == CLOSED:
                     continue
-                g2 = g + trans[p] + prox[cell] * motion_len_list[p]
+                g2 = g + trans[p] + prox[cell] * length
                 if other is not None and node_g[other] <= g2:
                     continue
-                n = len(node_x)
-                node_x.append(ex)
-                node_y.append(ey)
+                n = len(node_g)
+                node_x.append(x + dx)
+                node_y.append(y + dy)
                 node_k.append(k2)
                 node_g.append(g2)
                 node_parent.append(i)
