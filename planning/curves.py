@@ -524,14 +524,7 @@ def _best_path(candidates, r: float, signed_word: bool) -> CurvePath:
     best = min(c[0] for c in candidates)
     ties = [c for c in candidates if c[0] <= best + _TIE * max(1.0, best)]
     _, pat, mags = min(ties, key=lambda c: _cusps(c[1], c[2]))  # first of fewest cusps
-    segments = tuple(
-        (k, g * (m * r if m > _ZERO_LENGTH else 0.0)) for (k, g), m in zip(pat, mags)
-    )
-    if signed_word:
-        word = "".join(k + ("+" if g > 0 else "-") for k, g in pat)
-    else:
-        word = "".join(k for k, _ in pat)
-    return CurvePath(word, segments, r)
+    return _to_path(pat, mags, r, signed_word)
 
 
 def _to_path(pat, mags, r: float, signed_word: bool) -> CurvePath:
