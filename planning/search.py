@@ -716,24 +716,33 @@ class _Search:
         )
 
     # -------------------------------------------------------------- output
-    def _curve_cost(self, path, start) -> tuple[float, np.ndarray] | None:
+    def _curve_base_cost(self, path) -> float:
+        """Cost of a curve before clearance: length with the reverse factor, steering, gears."""
+        settings = self.settings
+        cost = settings.gear_change_cost_m * path.gear_changes
+        for kind, length in path.segments:
+            cost += abs(length) * (settings.reverse_cost_factor if length < 0 else 1.0) * (
+                1.0 + (settings.steer_cost_factor if kind != "S" else 0.0)
+            )
+        return cost
+
+    def _curve_cost(self, path, start, limit: float = math.inf) -> tuple[float, np.ndarray] | None:
         """(cost, dense samples) of an analytic curve from ``start``, or None if it collides.
 
         The cost model of the search: length with the reverse factor, steering on arcs,
-        gear changes, and the clearance cost read along the samples.
+        gear changes, and the clearance cost read along the samples. A curve whose cost
+        before clearance already exceeds ``limit`` is refused before it is sampled.
         """
         settings, checker = self.settings, self.context.checker
+        cost = self._curve_base_cost(path)
+        if cost > limit:
+            return None
         sparse = path.sample(start, self.context.lattice_cell_m)
         if not checker.poses_clear(sparse[1:, 0], sparse[1:, 1], sparse[1:, 2]).all():
             return None
         samples = path.sample(start, checker.sample_step_m)
         if not checker.poses_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]).all():
             return None
-        cost = settings.gear_change_cost_m * path.gear_changes
-        for kind, length in path.segments:
-            cost += abs(length) * (settings.reverse_cost_factor if length < 0 else 1.0) * (
-                1.0 + (settings.steer_cost_factor if kind != "S" else 0.0)
-            )
         context = self.context
         grid = context.grid
         if settings.clearance_cost_factor > 0:
@@ -808,7 +817,11 @@ class _Search:
                 original = [g for piece in pieces[i:j] for g in gears(piece)]
                 if any(kind == "turn_in_place" for kind, _ in pieces[i:j]) or not original:
                     break
-                curve = curve_fn(waypoints[i][:3], waypoints[j][:3], radius)
+                if all(g > 0 for g in original):
+                    # a forward run can only become a forward curve: Dubins, much cheaper
+                    curve = curves.dubins_shortest(waypoints[i][:3], waypoints[j][:3], radius)
+                else:
+                    curve = curve_fn(waypoints[i][:3], waypoints[j][:3], radius)
                 replacement = gears(("curve", curve))
                 ok = (
                     replacement
@@ -816,8 +829,9 @@ class _Search:
                     and replacement[-1] == original[-1]
                     and changes(replacement) <= changes(original)
                 )
-                found = self._curve_cost(curve, waypoints[i][:3]) if ok else None
-                if found is None or found[0] > waypoints[j][3] - waypoints[i][3] + 1e-9:
+                budget = waypoints[j][3] - waypoints[i][3] + 1e-9
+                found = self._curve_cost(curve, waypoints[i][:3], limit=budget) if ok else None
+                if found is None or found[0] > budget:
                     break
                 best = (j, curve)
                 if j == last:
@@ -839,7 +853,9 @@ class _Search:
         out_step = settings.output_step_m
         waypoints, pieces = self._pieces(finish, node_x, node_y, node_k, node_g, node_parent, node_prim, prims)
         if settings.smooth and not self.vehicle.turns_in_place and len(pieces) > 1:
+            t_smooth = time.perf_counter()
             waypoints, pieces = self._shortcut(waypoints, pieces)
+            self.stats["smooth_s"] = round(time.perf_counter() - t_smooth, 6)
         poses = [np.array([[self.start[0], self.start[1], self.start[2], 0.0]])]
         curvature = [np.array([0.0])]
         for (x, y, h, _), (kind, obj), end in zip(waypoints[:-1], pieces, waypoints[1:]):
