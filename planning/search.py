@@ -43,6 +43,7 @@ __all__ = ["Planner", "GridContext", "plan_path"]
 log = logging.getLogger("veer.planning")
 
 _TWO_PI = 2.0 * math.pi
+_SAMPLE_STEP_CELLS = 0.5  # collision samples along a motion, in map cells
 _SHOT_SLACK_CELLS = 0.0  # shot gate: curve estimate may fall this many lattice cells (+0.5 m) short
 _TURNING_WINDOW_RADII = 6.0  # turning heuristic applied within this many turn radii of the goal
 
@@ -107,7 +108,7 @@ class Planner:
                 return context
         t0 = time.perf_counter()
         cs = grid.cell_size_m
-        sample_step = cs / 2.0
+        sample_step = cs * _SAMPLE_STEP_CELLS
         clearance = self._refreshed_clearance(grid, settings)
         checker = FootprintChecker(grid, self.vehicle, sample_step_m=sample_step, reach_m=step, clearance_m=clearance)
         lattice = settings.lattice_cell_m or step / 2.0

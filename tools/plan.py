@@ -109,6 +109,12 @@ def run(args) -> int:
         print(f"veer plan: {error}" if not str(error).startswith("veer plan") else str(error), file=sys.stderr)
         return EXIT_BAD_INPUT
 
+    if sys.stderr.isatty():  # a person is watching: say what is being planned on
+        print(
+            f"veer plan: {Path(args.map_image).name}: {grid.cols} x {grid.rows} cells of {grid.cell_size_m:g} m "
+            f"({grid.width_m:.1f} x {grid.height_m:.1f} m); planning...",
+            file=sys.stderr,
+        )
     start = (args.start[0], args.start[1], math.radians(args.start[2]))
     goal = (args.goal[0], args.goal[1], math.radians(args.goal[2]))
     planner = Planner(vehicle, SearchSettings(allow_reverse=args.reverse))
