@@ -534,13 +534,13 @@ class _Search:
         index_weights = np.array([width_p, 1], dtype=np.intp)
         # per heading index, per primitive: (index, dx_m, dy_m, d_row, d_col in lattice
         # cells, end heading index, length_m), so the successor loop reads one tuple
+        lengths = motion_len.tolist()
         prim_rows = [
-            [
-                (p, float(end_dx[k, p]), float(end_dy[k, p]), float(end_dy[k, p] * inv_lat),
-                 float(end_dx[k, p] * inv_lat), int(end_k[k, p]), float(motion_len[p]))
-                for p in range(n_prims)
-            ]
-            for k in range(bins)
+            list(zip(range(n_prims), dx, dy, dr, dc, k2, lengths))
+            for dx, dy, dr, dc, k2 in zip(
+                end_dx.tolist(), end_dy.tolist(), (end_dy * inv_lat).tolist(), (end_dx * inv_lat).tolist(),
+                end_k.tolist(),
+            )
         ]
         t_loop = time.perf_counter()
         expansions = generated = shots = 0
@@ -738,7 +738,7 @@ class _Search:
         cost = self._curve_base_cost(path)
         if cost > limit:
             return None
-        sparse = path.sample(start, self.context.lattice_cell_m)
+        sparse = path.sample(start, 4.0 * checker.sample_step_m)
         if not checker.poses_clear(sparse[1:, 0], sparse[1:, 1], sparse[1:, 2]).all():
             return None
         samples = path.sample(start, checker.sample_step_m)
