@@ -892,6 +892,7 @@ class _Search:
             poses.append(seg)
             curvature.append(kappa)
         all_poses = np.vstack(poses)
+        all_poses[:, 2] = (all_poses[:, 2] + math.pi) % _TWO_PI - math.pi  # headings in [-pi, pi)
         all_kappa = np.concatenate(curvature)
         # drop zero-length repeats (a shot from the exact goal, cusp duplicates)
         keep = np.ones(len(all_poses), dtype=bool)

@@ -91,3 +91,11 @@ def test_forward_only_comes_close_to_dubins_in_open_space(goal, geo):
     optimum = dubins_length(start, goal, RADIUS_M)
     assert path.length_m <= optimum * 1.05 + 0.5
     assert path.length_m >= optimum * (1 - 1e-3)
+
+
+@pytest.mark.parametrize("name", ["open_yard", "warehouse", "parking_bay", "s_corridor"])
+def test_output_headings_are_wrapped(name):
+    scenario = build_scenario(name)
+    path = Planner(EXAMPLE_VEHICLE).plan(scenario.grid, scenario.start, scenario.goal)
+    headings = path.poses[:, 2]
+    assert (headings >= -math.pi).all() and (headings < math.pi).all()
