@@ -268,7 +268,7 @@ def _legend_items(inflated) -> list[tuple[str, str]]:
         ("free", "free"),
         ("occupied", "occupied"),
         ("unknown", "unknown"),
-        ("margin", f"inflated margin ({inflated.radius_m:g} m)"),
+        ("margin", f"inflated margin ({round(inflated.radius_m, 2):g} m)"),
         ("forward", "forward"),
         ("reverse", "reverse"),
         ("gear", "gear change"),
