@@ -389,9 +389,8 @@ class _Search:
         return stats
 
     def _shot(self, x: float, y: float, h: float):
-        """Analytic path from (x, y, h) to the goal, or None; returns (samples (N, 4), cost)."""
+        """Analytic path from (x, y, h) to the goal: (curve or turn-in-place pieces, cost), or None."""
         vehicle, settings = self.vehicle, self.settings
-        checker = self.context.checker
         if vehicle.turns_in_place:
             return self._turn_in_place_shot(x, y, h)
         radius = vehicle.min_turn_radius_m
@@ -460,8 +459,6 @@ class _Search:
                 "the goal cannot be reached from the start even ignoring the turning limit",
                 self._finish_stats(field_s=round(field_s, 6)),
             )
-        use_field = settings.use_heuristic_field
-        h2_flat = field.lower_bound_flat
 
         # ---- turning heuristic table (unit radius)
         radius = vehicle.min_turn_radius_m
@@ -470,7 +467,6 @@ class _Search:
             # lower envelope over +-2 entries: the table step is 0.125 turning radii and a
             # pose lies within 0.21 radii of its lattice cell's nearest entry (see spread)
             table = turning_table("reeds_shepp" if settings.allow_reverse else "dubins", spread=2)
-        cg, sg = math.cos(gh), math.sin(gh)
 
         # ---- primitives tabulated for this start heading
         prims: PrimitiveTable = build_primitive_table(
@@ -485,7 +481,6 @@ class _Search:
         circle_rows = prims.circle_dy_m * inv_cell
         end_dx, end_dy = prims.end_dx_m, prims.end_dy_m
         end_k = prims.end_heading_index
-        end_k_list = end_k.tolist()
         rel_heading = (sh - gh + bin_rad * np.arange(bins))  # heading of index k relative to goal
         transition = prims.transition_cost.tolist()
         motion_len = prims.motion_length_m
