@@ -402,29 +402,51 @@ class _Search:
         return None
 
     def _turn_in_place_shot(self, x, y, h):
+        return self._spin_drive_spin((x, y, h), self.goal)
+
+    def _spin_drive_spin(self, start, end):
+        """Rotate on the spot to face ``end``, drive straight to it, rotate to its heading.
+
+        For turn-in-place bases: ([(part, amount, dense poses), ...], cost) or None when it
+        collides. Rotations cost the distance the footprint's farthest point travels.
+        """
         checker = self.context.checker
-        gx, gy, gh = self.goal
-        dist = math.hypot(gx - x, gy - y)
-        heading = math.atan2(gy - y, gx - x) if dist > 1e-9 else h
+        (x, y, h), (ex, ey, eh) = start, end
+        dist = math.hypot(ex - x, ey - y)
+        facing = math.atan2(ey - y, ex - x) if dist > 1e-9 else h
         reach = self.vehicle.bounding_radius_m
         pieces = []
-        pose = (x, y, h)
-        for target in (heading, gh):
-            turn = _wrap(target - pose[2])
+
+        def rotate(px, py, from_h, to_h):
+            turn = _wrap(to_h - from_h)
             n = max(1, int(math.ceil(abs(turn) * max(reach, 1e-6) / checker.sample_step_m)))
-            hs = pose[2] + turn * np.arange(1, n + 1) / n
-            pieces.append(("rotate", turn, np.column_stack((np.full(n, pose[0]), np.full(n, pose[1]), hs))))
-            pose = (pose[0], pose[1], pose[2] + turn)
-            if target is heading and dist > 1e-9:
-                n = max(1, int(math.ceil(dist / checker.sample_step_m)))
-                line = arc_poses(x, y, heading, dist, 0.0, np.arange(1, n + 1) / n)
-                pieces.append(("S", dist, line))
-                pose = (gx, gy, heading)
+            hs = from_h + turn * np.arange(1, n + 1) / n
+            pieces.append(("rotate", turn, np.column_stack((np.full(n, px), np.full(n, py), hs))))
+
+        rotate(x, y, h, facing)
+        if dist > 1e-9:
+            n = max(1, int(math.ceil(dist / checker.sample_step_m)))
+            pieces.append(("S", dist, arc_poses(x, y, facing, dist, 0.0, np.arange(1, n + 1) / n)))
+        rotate(ex, ey, facing, eh)
         dense = np.vstack([p[2] for p in pieces])
         if not checker.poses_clear(dense[:, 0], dense[:, 1], dense[:, 2]).all():
             return None
         cost = dist + sum(abs(p[1]) * reach for p in pieces if p[0] == "rotate")
-        return pieces, cost
+        return pieces, cost + self._clearance_cost(dense)
+
+    def _clearance_cost(self, samples: np.ndarray) -> float:
+        """The search's clearance cost along dense samples (N, >=2)."""
+        context = self.context
+        if self.settings.clearance_cost_factor <= 0 or len(samples) < 2:
+            return 0.0
+        grid = context.grid
+        top = grid.origin_m[1] + grid.rows * grid.cell_size_m
+        inv_lat = 1.0 / context.lattice_cell_m
+        rows_c, cols_c = context.open_coarse.shape
+        lr = np.clip(((top - samples[:, 1]) * inv_lat).astype(np.intp), 0, rows_c - 1)
+        lc = np.clip(((samples[:, 0] - grid.origin_m[0]) * inv_lat).astype(np.intp), 0, cols_c - 1)
+        step = np.hypot(np.diff(samples[:, 0]), np.diff(samples[:, 1]))
+        return float((context.proximity_coarse[(lr * cols_c + lc)[1:]] * step).sum())
 
     # -------------------------------------------------------------- main loop
     def run(self) -> PlannedPath:
@@ -739,17 +761,7 @@ class _Search:
         samples = path.sample(start, checker.sample_step_m)
         if not checker.poses_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]).all():
             return None
-        context = self.context
-        grid = context.grid
-        if settings.clearance_cost_factor > 0:
-            top = grid.origin_m[1] + grid.rows * grid.cell_size_m
-            inv_lat = 1.0 / context.lattice_cell_m
-            rows_c, cols_c = context.open_coarse.shape
-            lr = np.clip(((top - samples[:, 1]) * inv_lat).astype(np.intp), 0, rows_c - 1)
-            lc = np.clip(((samples[:, 0] - grid.origin_m[0]) * inv_lat).astype(np.intp), 0, cols_c - 1)
-            step = np.hypot(np.diff(samples[:, 0]), np.diff(samples[:, 1]))
-            cost += float((context.proximity_coarse[(lr * cols_c + lc)[1:]] * step).sum())
-        return cost, samples
+        return cost + self._clearance_cost(samples), samples
 
     def _pieces(self, finish, node_x, node_y, node_k, node_g, node_parent, node_prim, prims):
         """The found path as pieces between waypoints, with the cost to reach each waypoint.
@@ -790,6 +802,7 @@ class _Search:
         """
         settings = self.settings
         radius = self.vehicle.min_turn_radius_m
+        spinning = self.vehicle.turns_in_place
         curve_fn = curves.reeds_shepp_shortest if settings.allow_reverse else curves.dubins_shortest
 
         def gears(piece):
@@ -811,6 +824,19 @@ class _Search:
             while i + 1 < last:
                 j = min(i + span, last)
                 original = [g for piece in pieces[i:j] for g in gears(piece)]
+                budget = waypoints[j][3] - waypoints[i][3] + 1e-9
+                if spinning:
+                    # rotate, drive straight, rotate: only where the run drove forward
+                    if any(g < 0 for g in original):
+                        break
+                    found = self._spin_drive_spin(waypoints[i][:3], waypoints[j][:3])
+                    if found is None or found[1] > budget:
+                        break
+                    best = (j, ("turn_in_place", found[0]))
+                    if j == last:
+                        break
+                    span *= 2
+                    continue
                 if any(kind == "turn_in_place" for kind, _ in pieces[i:j]) or not original:
                     break
                 if all(g > 0 for g in original):
@@ -825,11 +851,10 @@ class _Search:
                     and replacement[-1] == original[-1]
                     and changes(replacement) <= changes(original)
                 )
-                budget = waypoints[j][3] - waypoints[i][3] + 1e-9
                 found = self._curve_cost(curve, waypoints[i][:3], limit=budget) if ok else None
                 if found is None or found[0] > budget:
                     break
-                best = (j, curve)
+                best = (j, ("curve", curve))
                 if j == last:
                     break
                 span *= 2
@@ -838,8 +863,8 @@ class _Search:
                 out_waypoints.append(waypoints[i + 1])
                 i += 1
             else:
-                j, curve = best
-                out_pieces.append(("curve", curve))
+                j, piece = best
+                out_pieces.append(piece)
                 out_waypoints.append(waypoints[j])
                 i = j
         return out_waypoints, out_pieces
@@ -848,7 +873,7 @@ class _Search:
         settings = self.settings
         out_step = settings.output_step_m
         waypoints, pieces = self._pieces(finish, node_x, node_y, node_k, node_g, node_parent, node_prim, prims)
-        if settings.smooth and not self.vehicle.turns_in_place and len(pieces) > 1:
+        if settings.smooth and len(pieces) > 1:
             t_smooth = time.perf_counter()
             waypoints, pieces = self._shortcut(waypoints, pieces)
             self.stats["smooth_s"] = round(time.perf_counter() - t_smooth, 6)
