@@ -25,8 +25,6 @@ from veer.planning.vehicle import Vehicle
 
 __all__ = ["FootprintChecker"]
 
-_RECT_CHUNK = 32  # poses per window in the exact rectangle check
-
 
 class FootprintChecker:
     """Answers "is the footprint clear at these poses?" for one grid and one vehicle.
@@ -86,6 +84,7 @@ class FootprintChecker:
         self.left_x_m = grid.origin_m[0] - pad * cs
         self.top_y_m = grid.origin_m[1] + grid.rows * cs + pad * cs
         self._raw_blocked = None  # padded raw grid, built on first exact check
+        self._raw_boundary = None  # its blocked squares that touch an open square
 
     # ------------------------------------------------------------------ lookups
     def flat_index(self, x_m, y_m) -> np.ndarray:
@@ -129,24 +128,33 @@ class FootprintChecker:
         """Exact test of one (margin-grown) rectangle against the blocked squares near it."""
         return bool(self.rectangles_clear([x_m], [y_m], [heading_rad])[0])
 
-    def rectangles_clear(self, x_m, y_m, heading_rad) -> np.ndarray:
+    def rectangles_clear(self, x_m, y_m, heading_rad, *, chunk: int = 32) -> np.ndarray:
         """Exact test of (margin-grown) rectangles against the blocked squares near them.
 
         Separating-axis theorem for two convex polygons: they are disjoint if and only if
         their projections are disjoint on one of the edge normals (two of the square, two
-        of the rectangle). Vectorised over poses x blocked squares in the poses' window.
+        of the rectangle). Vectorised over poses x blocked squares in the poses' window;
+        ``chunk`` consecutive poses share one window (pass a large one for poses that lie
+        close together, such as the samples of one expansion).
         """
         x_m, y_m, heading_rad = (np.atleast_1d(np.asarray(v, dtype=float)) for v in (x_m, y_m, heading_rad))
-        if len(x_m) > _RECT_CHUNK:
+        if len(x_m) > chunk:
             # one window per few consecutive poses keeps the poses x squares table small
             return np.concatenate([
-                self.rectangles_clear(x_m[i : i + _RECT_CHUNK], y_m[i : i + _RECT_CHUNK], heading_rad[i : i + _RECT_CHUNK])
-                for i in range(0, len(x_m), _RECT_CHUNK)
+                self.rectangles_clear(x_m[i : i + chunk], y_m[i : i + chunk], heading_rad[i : i + chunk], chunk=chunk)
+                for i in range(0, len(x_m), chunk)
             ])
         grid = self.grid
         cs = grid.cell_size_m
         if self._raw_blocked is None:
-            self._raw_blocked = np.pad(grid.blocked, self.pad_cells, constant_values=True)
+            raw = np.pad(grid.blocked, self.pad_cells, constant_values=True)
+            # boundary squares: blocked with an open 4-neighbour. A rectangle meets the
+            # blocked union exactly when it meets a boundary square or lies inside the
+            # union (then its centre's cell is blocked), so only these need the full test.
+            inner = raw.copy()
+            inner[1:-1, 1:-1] &= raw[:-2, 1:-1] & raw[2:, 1:-1] & raw[1:-1, :-2] & raw[1:-1, 2:]
+            self._raw_boundary = raw & ~inner
+            self._raw_blocked = raw
         vehicle = self.vehicle
         grow = self._rect_grow_m
         rear = -vehicle.rear_overhang_or_default_m - grow
@@ -167,14 +175,17 @@ class FootprintChecker:
         inside = (row_lo >= 0) & (col_lo >= 0) & (row_hi < self.padded_rows - 1) & (col_hi < self.padded_cols - 1)
         if not inside.all():
             if inside.any():
-                result[inside] = self.rectangles_clear(x_m[inside], y_m[inside], heading_rad[inside])
+                result[inside] = self.rectangles_clear(x_m[inside], y_m[inside], heading_rad[inside], chunk=chunk)
             return result
         col0, col1 = int(col_lo.min()), int(col_hi.max())
         row0, row1 = int(row_lo.min()), int(row_hi.max())
-        rows, cols = np.nonzero(self._raw_blocked[row0 : row1 + 1, col0 : col1 + 1])
+        # a rectangle whose centre lies in a blocked square is blocked outright
+        centre_blocked = self._raw_blocked[
+            ((self.top_y_m - cy) * self.inv_cell).astype(np.intp), ((cx - self.left_x_m) * self.inv_cell).astype(np.intp)
+        ]
+        rows, cols = np.nonzero(self._raw_boundary[row0 : row1 + 1, col0 : col1 + 1])
         if rows.size == 0:
-            result[:] = True
-            return result
+            return ~centre_blocked
         half = cs / 2.0
         # centres of the blocked squares relative to each rectangle's centre: (poses, squares)
         qx = (self.left_x_m + (cols + col0 + 0.5) * cs)[None, :] - cx[:, None]
@@ -185,4 +196,4 @@ class FootprintChecker:
         square_on_axis = half * (np.abs(c2) + np.abs(s2))
         separated |= np.abs(qx * c2 + qy * s2) > half_len + square_on_axis
         separated |= np.abs(-qx * s2 + qy * c2) > half_wid + square_on_axis
-        return separated.all(axis=1)
+        return separated.all(axis=1) & ~centre_blocked

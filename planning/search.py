@@ -620,11 +620,14 @@ class _Search:
             cells = (sample_offsets[k] + ((top_p - y) * inv_cell, (x - left_p) * inv_cell)).astype(np.intp)
             hit = blocked_flat[cells.dot(index_weights)].reshape(n_prims, samples_per_prim).any(axis=1)
             if has_rect and hit.any():
-                for p in np.flatnonzero(hit):
-                    if checker.rectangles_clear(
-                        x + prims.sample_dx_m[k, p], y + prims.sample_dy_m[k, p], prims.sample_heading_rad[k, p]
-                    ).all():
-                        hit[p] = False
+                # the circles are conservative: test the doubtful primitives' rectangles exactly,
+                # all samples of one expansion in one window
+                doubtful = np.flatnonzero(hit)
+                clear = checker.rectangles_clear(
+                    (x + prims.sample_dx_m[k, doubtful]).ravel(), (y + prims.sample_dy_m[k, doubtful]).ravel(),
+                    prims.sample_heading_rad[k, doubtful].ravel(), chunk=1 << 30,
+                ).reshape(len(doubtful), -1).all(axis=1)
+                hit[doubtful[clear]] = False
             trans = transition[node_prim[i]]
             # y grows upwards, rows downwards: lattice row of y + dy is (a - dy) / lattice
             a = (top - y) * inv_lat
