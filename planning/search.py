@@ -521,16 +521,12 @@ class _Search:
         max_exp = settings.max_expansions
         deadline, cancel = self.deadline, self.cancel
 
-        # ---- node store: parallel lists indexed by node id
-        node_x = [sx]
-        node_y = [sy]
-        node_k = [0]
-        node_g = [0.0]
-        node_parent = [-1]
-        node_prim = [n_prims]  # row n_prims of the transition table = "no motion yet"
+        # ---- node store: one tuple per node id, (x_m, y_m, heading index, g, parent id,
+        # primitive, lattice key); primitive n_prims (a row of the transition table) = "no motion yet"
         sr, sc = coarse_cell(sx, sy)
         start_key = (sr * cols_c + sc) * bins
-        node_key = [start_key]
+        nodes = [(sx, sy, 0, 0.0, -1, n_prims, start_key)]
+        add_node = nodes.append
         # lattice key -> node id of the best open node there, or CLOSED once expanded
         state: dict[int, int] = {start_key: 0}
         CLOSED = -1
@@ -560,7 +556,8 @@ class _Search:
             )
         ]
         t_loop = time.perf_counter()
-        expansions = generated = shots = 0
+        expansions = shots = 0
+        state_get = state.get
         reason = "no_path_at_resolution"
         finish = None  # (node id, shot or None)
 
@@ -576,7 +573,7 @@ class _Search:
             if i < 0:
                 finish = shot_solutions[-i - 1]
                 break
-            key = node_key[i]
+            x, y, k, g, _, prim_in, key = nodes[i]
             if state[key] != i:  # closed, or superseded by a cheaper node in the same key
                 continue
             if expansions >= max_exp:
@@ -584,7 +581,6 @@ class _Search:
                 break
             state[key] = CLOSED
             expansions += 1
-            x, y, k, g = node_x[i], node_y[i], node_k[i], node_g[i]
             if expansions & 63 == 0:
                 if time.perf_counter() > deadline:
                     reason = "deadline"
@@ -628,34 +624,27 @@ class _Search:
                     prims.sample_heading_rad[k, doubtful].ravel(), chunk=1 << 30,
                 ).reshape(len(doubtful), -1).all(axis=1)
                 hit[doubtful[clear]] = False
-            trans = transition[node_prim[i]]
+            trans = transition[prim_in]
             # y grows upwards, rows downwards: lattice row of y + dy is (a - dy) / lattice
             a = (top - y) * inv_lat
             b = (x - ox) * inv_lat
             for p, dx, dy, dr, dc, k2, length in compress(prim_rows[k], (~hit).tolist()):
                 cell = int(a - dr) * cols_c + int(b + dc)
                 key2 = cell * bins + k2
-                other = state.get(key2)
+                other = state_get(key2)
                 if other == CLOSED:
                     continue
                 g2 = g + trans[p] + prox[cell] * length
-                if other is not None and node_g[other] <= g2:
+                if other is not None and nodes[other][3] <= g2:
                     continue
-                n = len(node_g)
-                node_x.append(x + dx)
-                node_y.append(y + dy)
-                node_k.append(k2)
-                node_g.append(g2)
-                node_parent.append(i)
-                node_prim.append(p)
-                node_key.append(key2)
+                n = len(nodes)
+                add_node((x + dx, y + dy, k2, g2, i, p, key2))
                 state[key2] = n
                 off = window_offset[cell]
                 heappush(heap, (g2 + weight * (window_h[off + k2] if off >= 0 else base_h[cell]), n))
-                generated += 1
 
         self.stats.update(
-            expansions=expansions, generated=generated, shots_tried=shots,
+            expansions=expansions, generated=len(nodes) - 1, shots_tried=shots,
             search_s=round(time.perf_counter() - t_loop, 6),
         )
         if finish is None and shot_solutions and reason in ("budget_exhausted", "deadline"):
@@ -667,7 +656,7 @@ class _Search:
             else:
                 detail = f"stopped after {expansions} expansions ({reason})"
             raise NoPath(reason, detail, self._finish_stats(field_s=round(field_s, 6)))
-        path = self._assemble(finish, node_x, node_y, node_k, node_g, node_parent, node_prim, prims)
+        path = self._assemble(finish, nodes, prims)
         path.stats = self._finish_stats(
             field_s=round(field_s, 6), prepare_s=round(context.prepare_s, 6), final_poses=len(path.poses)
         )
@@ -754,7 +743,7 @@ class _Search:
         gear changes, and the clearance cost read along the samples. A curve whose cost
         before clearance already exceeds ``limit`` is refused before it is sampled.
         """
-        settings, checker = self.settings, self.context.checker
+        checker = self.context.checker
         cost = self._curve_base_cost(path)
         if cost > limit:
             return None
@@ -766,7 +755,7 @@ class _Search:
             return None
         return cost + self._clearance_cost(samples), samples
 
-    def _pieces(self, finish, node_x, node_y, node_k, node_g, node_parent, node_prim, prims):
+    def _pieces(self, finish, nodes, prims):
         """The found path as pieces between waypoints, with the cost to reach each waypoint.
 
         Returns (waypoints, pieces): waypoints are (x, y, heading, g); piece i joins
@@ -778,11 +767,11 @@ class _Search:
         chain = []
         while i >= 0:
             chain.append(i)
-            i = node_parent[i]
+            i = nodes[i][4]
         chain.reverse()
-        waypoints = [(node_x[n], node_y[n], sh + node_k[n] * bin_rad, node_g[n]) for n in chain]
+        waypoints = [(nodes[n][0], nodes[n][1], sh + nodes[n][2] * bin_rad, nodes[n][3]) for n in chain]
         waypoints[0] = (*self.start, 0.0)
-        pieces = [("prim", prims.primitives[node_prim[b]]) for b in chain[1:]]
+        pieces = [("prim", prims.primitives[nodes[b][5]]) for b in chain[1:]]
         if shot is not None:
             last = waypoints[-1]
             if isinstance(shot, list):
@@ -872,10 +861,10 @@ class _Search:
                 i = j
         return out_waypoints, out_pieces
 
-    def _assemble(self, finish, node_x, node_y, node_k, node_g, node_parent, node_prim, prims) -> PlannedPath:
+    def _assemble(self, finish, nodes, prims) -> PlannedPath:
         settings = self.settings
         out_step = settings.output_step_m
-        waypoints, pieces = self._pieces(finish, node_x, node_y, node_k, node_g, node_parent, node_prim, prims)
+        waypoints, pieces = self._pieces(finish, nodes, prims)
         if settings.smooth and len(pieces) > 1:
             t_smooth = time.perf_counter()
             waypoints, pieces = self._shortcut(waypoints, pieces)
