@@ -542,9 +542,17 @@ class _Search:
             goal_key = (goal_cell[0] * cols_c + goal_cell[1]) * bins + goal_index
         # per heading index: every collision sample as (row, col) offsets in cells, and
         # each primitive's end offset, lattice heading index and cost as plain lists
+        # Collision samples as whole-cell flat offsets plus fractional thresholds: with the
+        # parent at row r0 = ri + rf and a sample offset d = di + df (whole + fraction),
+        # floor(r0 + d) = ri + di + (rf >= 1 - df); so each lookup is integer adds and two
+        # comparisons, with no float-to-int conversion of the samples.
         samples_per_prim = circle_cols.shape[2]
-        sample_offsets = np.stack((-circle_rows, circle_cols), axis=-1).reshape(bins, -1, 2)
-        index_weights = np.array([width_p, 1], dtype=np.intp)
+        row_offsets = (-circle_rows).reshape(bins, -1)
+        col_offsets = circle_cols.reshape(bins, -1)
+        row_whole, col_whole = np.floor(row_offsets), np.floor(col_offsets)
+        sample_flat = (row_whole * width_p + col_whole).astype(np.intp)
+        row_step_at = 1.0 - (row_offsets - row_whole)  # parent fraction from which a row is added
+        col_step_at = 1.0 - (col_offsets - col_whole)
         # per heading index, per primitive: (index, dx_m, dy_m, d_row, d_col in lattice
         # cells, end heading index, length_m), so the successor loop reads one tuple
         lengths = motion_len.tolist()
@@ -613,8 +621,13 @@ class _Search:
                     heappush(heap, (best_shot_cost, -len(shot_solutions)))
 
             # ---- successors: collision samples of every primitive in one lookup
-            cells = (sample_offsets[k] + ((top_p - y) * inv_cell, (x - left_p) * inv_cell)).astype(np.intp)
-            hit = blocked_flat[cells.dot(index_weights)].reshape(n_prims, samples_per_prim).any(axis=1)
+            r0 = (top_p - y) * inv_cell
+            c0 = (x - left_p) * inv_cell
+            ri, ci = int(r0), int(c0)
+            cells = sample_flat[k] + (ri * width_p + ci)
+            cells += (row_step_at[k] <= r0 - ri) * width_p
+            cells += col_step_at[k] <= c0 - ci
+            hit = blocked_flat[cells].reshape(n_prims, samples_per_prim).any(axis=1)
             if has_rect and hit.any():
                 # the circles are conservative: test the doubtful primitives' rectangles exactly,
                 # all samples of one expansion in one window
