@@ -23,6 +23,7 @@ import os
 from dataclasses import dataclass
 from pathlib import Path
 
+import cv2
 import numpy as np
 
 from veer.planning import curves
@@ -35,16 +36,26 @@ _SQRT2 = math.sqrt(2.0)
 
 
 def coarse_max(values: np.ndarray, factor: int) -> np.ndarray:
-    """Maximum over each factor x factor block (blocks at the bottom/right edge may be partial)."""
+    """Maximum over each factor x factor block (blocks at the bottom/right edge may be partial).
+
+    A max filter anchored at the block's top-left corner (``cv2.dilate``), read at every
+    ``factor``-th cell: the same as reshaping into blocks, an order of magnitude faster.
+    """
     rows, cols = values.shape
     rows_c, cols_c = -(-rows // factor), -(-cols // factor)
+    if factor == 1:
+        return values.copy()
     if values.dtype == bool:
-        fill = False
+        source, fill = values.view(np.uint8), 0
     else:
-        fill = np.finfo(values.dtype).min if values.dtype.kind == "f" else np.iinfo(values.dtype).min
-    padded = np.full((rows_c * factor, cols_c * factor), fill, dtype=values.dtype)
-    padded[:rows, :cols] = values
-    return padded.reshape(rows_c, factor, cols_c, factor).max(axis=(1, 3))
+        source = np.ascontiguousarray(values, dtype=np.float32)
+        fill = float(np.finfo(np.float32).min)
+    padded = np.full((rows_c * factor, cols_c * factor), fill, dtype=source.dtype)
+    padded[:rows, :cols] = source
+    kernel = np.ones((factor, factor), np.uint8)
+    pooled = cv2.dilate(padded, kernel, anchor=(0, 0), borderType=cv2.BORDER_CONSTANT, borderValue=fill)
+    out = pooled[::factor, ::factor]
+    return out.astype(bool) if values.dtype == bool else out.astype(values.dtype)
 
 
 def coarse_open_mask(blocked: np.ndarray, factor: int) -> np.ndarray:

@@ -167,3 +167,18 @@ def test_lookup_beyond_the_table_is_the_straight_line():
         np.testing.assert_allclose(values, np.hypot(u, v))
         # a lower bound: no curve is shorter than the straight line
         assert np.all(values <= _exact(kind, u, v, phi) + 1e-9)
+
+
+def test_coarse_max_equals_block_maximum():
+    from veer.planning.heuristics import coarse_max
+
+    rng = np.random.default_rng(0)
+    for _ in range(40):
+        rows, cols, factor = (int(v) for v in rng.integers((5, 5, 1), (70, 70, 9)))
+        for values in (rng.random((rows, cols)) > 0.7, rng.standard_normal((rows, cols)).astype(np.float32)):
+            rows_c, cols_c = -(-rows // factor), -(-cols // factor)
+            padded = np.full((rows_c * factor, cols_c * factor), -np.inf)
+            padded[:rows, :cols] = values
+            # reference: numpy's maximum over each (partial) block
+            expected = padded.reshape(rows_c, factor, cols_c, factor).max(axis=(1, 3)).astype(values.dtype)
+            np.testing.assert_array_equal(coarse_max(values, factor), expected)
