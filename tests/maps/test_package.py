@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import ast
 import doctest
 import importlib
 import inspect
@@ -46,20 +45,12 @@ def test_api_signatures_stay_put():
 
 
 @pytest.mark.parametrize("name", MODULES + ["__init__"])
-def test_no_module_imports_other_veer_packages(name):
-    tree = ast.parse((MAPS_DIR / f"{name}.py").read_text())
-    for node in ast.walk(tree):
-        if isinstance(node, ast.Import):
-            targets = [alias.name for alias in node.names]
-        elif isinstance(node, ast.ImportFrom):
-            assert node.level <= 1, f"{name}.py reaches above veer.maps with a relative import"
-            targets = [node.module or ""]
-        else:
-            continue
-        for target in targets:
-            assert not target.startswith(("veer.planning", "veer.node", "veer.tools", "planning", "node", "tools")), (
-                f"{name}.py imports {target}"
-            )
+def test_no_module_imports_other_veer_packages(name, imports_of):
+    for target, level in imports_of(MAPS_DIR / f"{name}.py"):
+        assert level <= 1, f"{name}.py reaches above veer.maps with a relative import"
+        assert not target.startswith(("veer.planning", "veer.node", "veer.tools", "planning", "node", "tools")), (
+            f"{name}.py imports {target}"
+        )
 
 
 @pytest.mark.parametrize("name", MODULES)
