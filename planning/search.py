@@ -79,7 +79,7 @@ class Planner:
     Examples
     --------
     >>> import numpy as np
-    >>> from veer.maps import OccupancyGrid, update_clearance_m
+    >>> from veer.maps import OccupancyGrid
     >>> grid = OccupancyGrid(np.zeros((200, 300), np.uint8), 0.1, (0.0, 0.0))
     >>> from veer.planning.vehicle import EXAMPLE_VEHICLE
     >>> path = Planner(EXAMPLE_VEHICLE).plan(grid, (5.0, 10.0, 0.0), (25.0, 10.0, 0.0))
@@ -150,7 +150,10 @@ class Planner:
         if previous is None:
             return None
         checker = previous.checker
-        reach = checker.circle_radius_m + checker.inflated.margin_m + settings.clearance_range_m + grid.cell_size_m
+        # every threshold read later: the mask (radius + margin), the clearance cost (+ its
+        # range) and the narrow-passage test (+ a quarter lattice cell, below one step)
+        extra = max(settings.clearance_range_m, _primitive_step(self.vehicle, settings, grid.cell_size_m))
+        reach = checker.circle_radius_m + checker.inflated.margin_m + extra + grid.cell_size_m
         clearance, _ = update_clearance_m(previous.grid, checker.inflated.clearance_m, grid, reach_m=reach)
         return clearance
 
@@ -299,7 +302,7 @@ def _optimistic_open(checker: FootprintChecker, vehicle: Vehicle) -> np.ndarray:
     The collision mask is conservative (margins, covering circles); the proof that a goal
     is enclosed and the 2-D field need the opposite, so that they never close a passage
     the vehicle fits through. The footprint contains a disc (radius_m, or half the
-    rectangle's width around its centre); wherever that disc fits, the centre-to-centre
+    rectangle's shorter side around its centre); wherever that disc fits, the centre-to-centre
     clearance of its cell is at least its radius less half a cell diagonal. For a
     rectangle the reference point is then within the centre's offset (plus a cell
     diagonal for the two cells) of such a cell.
@@ -307,7 +310,7 @@ def _optimistic_open(checker: FootprintChecker, vehicle: Vehicle) -> np.ndarray:
     inflated = checker.inflated
     cs = inflated.grid.cell_size_m
     if vehicle.has_rectangle:
-        inner_radius = vehicle.width_m / 2.0
+        inner_radius = min(vehicle.width_m, vehicle.length_m) / 2.0
         offset = abs(vehicle.length_m / 2.0 - vehicle.rear_overhang_or_default_m)
     else:
         inner_radius, offset = float(vehicle.radius_m), 0.0
