@@ -473,6 +473,15 @@ def _circle_vectors(x, y, phi):
     return ra, ta, rb, tb
 
 
+def _variant(pattern, refl: bool, flip: bool, back: bool):
+    """A base word's pattern under reflection (L <-> R), timeflip (gears negated), reversal."""
+    if refl:
+        pattern = tuple((_SWAP[k], g) for k, g in pattern)
+    if flip:
+        pattern = tuple((k, -g) for k, g in pattern)
+    return pattern[::-1] if back else pattern
+
+
 def _rs_candidates(x, y, phi):
     """All Reeds-Shepp candidates: list of (unit length, ((kind, sign), ...), mags)."""
     out = []
@@ -488,19 +497,23 @@ def _rs_candidates(x, y, phi):
                 else:
                     bx, by = gx, gy
                 vec = _circle_vectors(bx, by, gphi)
-                for pattern, solver, has_back in _RS_BASE:
-                    if back and not has_back:
-                        continue
+                for pat, solver in _RS_VARIANTS[(refl, flip, back)]:
                     for mags in solver(gphi, *vec):
-                        pat = pattern
-                        if refl:
-                            pat = tuple((_SWAP[k], g) for k, g in pat)
-                        if flip:
-                            pat = tuple((k, -g) for k, g in pat)
                         if back:
-                            pat, mags = pat[::-1], mags[::-1]
+                            mags = mags[::-1]
                         out.append((sum(mags), pat, mags))
     return out
+
+
+# every base word's pattern under each (reflect, timeflip, backwards) variant, made once
+_RS_VARIANTS = {
+    (refl, flip, back): [
+        (_variant(pattern, refl, flip, back), solver)
+        for pattern, solver, has_back in _RS_BASE
+        if has_back or not back
+    ]
+    for refl in (False, True) for flip in (False, True) for back in (False, True)
+}
 
 
 def _dubins_candidates(x, y, phi):
