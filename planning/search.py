@@ -253,6 +253,9 @@ class Planner:
         goal = tuple(float(v) for v in goal)
         self.validate_pose(context, start, "start")
         self.validate_pose(context, goal, "goal")
+        # headings in [-pi, pi): the search adds multiples of a bin to the start heading
+        start = (start[0], start[1], _wrap(start[2]))
+        goal = (goal[0], goal[1], _wrap(goal[2]))
         budget_s = settings.max_time_s if deadline_s is None else min(deadline_s, settings.max_time_s)
         deadline = t0 + budget_s
         finer = _finer(settings)

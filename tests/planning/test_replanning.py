@@ -99,3 +99,14 @@ def test_output_headings_are_wrapped(name):
     path = Planner(EXAMPLE_VEHICLE).plan(scenario.grid, scenario.start, scenario.goal)
     headings = path.poses[:, 2]
     assert (headings >= -math.pi).all() and (headings < math.pi).all()
+
+
+def test_unwrapped_headings_plan_like_wrapped_ones():
+    scenario = build_scenario("parking_bay")
+    x, y, h = scenario.start
+    gx, gy, gh = scenario.goal
+    wrapped = Planner(EXAMPLE_VEHICLE).plan(scenario.grid, scenario.start, scenario.goal)
+    unwrapped = Planner(EXAMPLE_VEHICLE).plan(scenario.grid, (x, y, h + 4 * math.pi), (gx, gy, gh - 2 * math.pi))
+    np.testing.assert_allclose(unwrapped.poses, wrapped.poses, atol=1e-9)
+    huge = Planner(EXAMPLE_VEHICLE).plan(scenario.grid, (x, y, 1e300), scenario.goal)  # any finite angle is an angle
+    assert huge.length_m > 0
