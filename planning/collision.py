@@ -124,10 +124,6 @@ class FootprintChecker:
         return int(bad[0]) if bad.size else None
 
     # ------------------------------------------------------------ exact check
-    def rectangle_clear(self, x_m: float, y_m: float, heading_rad: float) -> bool:
-        """Exact test of one (margin-grown) rectangle against the blocked squares near it."""
-        return bool(self.rectangles_clear([x_m], [y_m], [heading_rad])[0])
-
     def rectangles_clear(self, x_m, y_m, heading_rad, *, chunk: int = 32) -> np.ndarray:
         """Exact test of (margin-grown) rectangles against the blocked squares near them.
 

@@ -394,7 +394,7 @@ class _Search(_PathAssembly):
         """Analytic path from (x, y, h) to the goal: (curve or turn-in-place pieces, cost), or None."""
         vehicle, settings = self.vehicle, self.settings
         if vehicle.turns_in_place:
-            return self._turn_in_place_shot(x, y, h)
+            return self._spin_drive_spin((x, y, h), self.goal)
         radius = vehicle.min_turn_radius_m
         few = curves.reeds_shepp_shortest_few if settings.allow_reverse else curves.dubins_shortest_few
         for path in few((x, y, h), self.goal, radius, settings.shot_candidates):
@@ -402,9 +402,6 @@ class _Search(_PathAssembly):
             if found is not None:
                 return path, found[0]
         return None
-
-    def _turn_in_place_shot(self, x, y, h):
-        return self._spin_drive_spin((x, y, h), self.goal)
 
     # -------------------------------------------------------------- main loop
     def run(self) -> PlannedPath:
@@ -481,8 +478,7 @@ class _Search(_PathAssembly):
 
         # ---- node store: one tuple per node id, (x_m, y_m, heading index, g, parent id,
         # primitive, lattice key); primitive n_prims (a row of the transition table) = "no motion yet"
-        sr, sc = coarse_cell(sx, sy)
-        start_key = (sr * cols_c + sc) * bins
+        start_key = (start_cell[0] * cols_c + start_cell[1]) * bins
         nodes = [(sx, sy, 0, 0.0, -1, n_prims, start_key)]
         add_node = nodes.append
         # lattice key -> node id of the best open node there, or CLOSED once expanded
@@ -498,8 +494,6 @@ class _Search(_PathAssembly):
         if settings.goal_test_lattice:
             goal_index = int(round(_wrap(gh - sh) / bin_rad)) % bins
             goal_key = (goal_cell[0] * cols_c + goal_cell[1]) * bins + goal_index
-        # per heading index: every collision sample as (row, col) offsets in cells, and
-        # each primitive's end offset, lattice heading index and cost as plain lists
         # Collision samples as whole-cell flat offsets plus fractional thresholds: with the
         # parent at row r0 = ri + rf and a sample offset d = di + df (whole + fraction),
         # floor(r0 + d) = ri + di + (rf >= 1 - df); so each lookup is integer adds and two
