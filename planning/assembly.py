@@ -118,7 +118,7 @@ class _PathAssembly:
         ("turn_in_place", shot pieces).
         """
         sh, bin_rad = self.start[2], self.settings.heading_bin_rad
-        i, shot = finish
+        i, shot, shot_cost = finish
         chain = []
         while i >= 0:
             chain.append(i)
@@ -128,15 +128,8 @@ class _PathAssembly:
         waypoints[0] = (*self.start, 0.0)
         pieces = [("prim", prims.primitives[nodes[b][5]]) for b in chain[1:]]
         if shot is not None:
-            last = waypoints[-1]
-            if isinstance(shot, list):
-                pieces.append(("turn_in_place", shot))
-                waypoints.append((*self.goal, last[3]))
-            else:
-                found = self._curve_cost(shot, last[:3])
-                cost = found[0] if found is not None else 0.0
-                pieces.append(("curve", shot))
-                waypoints.append((*self.goal, last[3] + cost))
+            pieces.append(("turn_in_place" if isinstance(shot, list) else "curve", shot))
+            waypoints.append((*self.goal, waypoints[-1][3] + shot_cost))
         return waypoints, pieces
 
     def _shortcut(self, waypoints, pieces):

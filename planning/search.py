@@ -519,11 +519,11 @@ class _Search(_PathAssembly):
         expansions = shots = 0
         state_get = state.get
         reason = "no_path_at_resolution"
-        finish = None  # (node id, shot or None)
+        finish = None  # (node id, shot or None, cost of the shot)
 
         # collision-free shots become goal entries of the heap at their full cost, so a
         # shot is only taken once no open node promises better (weighted-A* bound)
-        shot_solutions: list[tuple[int, object]] = []  # (parent node id, curve); heap id -(j + 1)
+        shot_solutions: list[tuple[int, object, float]] = []  # (parent id, curve, its cost); heap id -(j + 1)
         best_shot_cost = math.inf
         if cancel is not None and cancel.is_set():
             heap = []
@@ -551,10 +551,10 @@ class _Search(_PathAssembly):
             heading = sh + k * bin_rad
             dist_goal = math.hypot(x - gx, y - gy)
             if dist_goal <= tol_m and abs(_wrap(heading - gh)) <= tol_rad:
-                finish = (i, None)
+                finish = (i, None, 0.0)
                 break
             if key == goal_key:
-                finish = (i, None)
+                finish = (i, None, 0.0)
                 break
             # shots from the start, then every shot_interval expansions, more often near the goal
             if use_shots and heur.worthy(key // bins, k) and (
@@ -566,7 +566,7 @@ class _Search(_PathAssembly):
                 shot = self._shot(x, y, heading)
                 if shot is not None and g + shot[1] < best_shot_cost:
                     best_shot_cost = g + shot[1]
-                    shot_solutions.append((i, shot[0]))
+                    shot_solutions.append((i, shot[0], shot[1]))
                     if best_shot_cost <= shot_accept * f:  # close to the best any open node promises
                         finish = shot_solutions[-1]
                         break
