@@ -156,6 +156,30 @@ class _PathAssembly:
         def changes(sequence):
             return sum(1 for a, b in zip(sequence, sequence[1:]) if a != b)
 
+        def replacement(i, j):
+            """The piece that may stand for pieces[i:j], or None."""
+            original = [g for piece in pieces[i:j] for g in gears(piece)]
+            budget = waypoints[j][3] - waypoints[i][3] + 1e-9
+            if spinning:
+                # rotate, drive straight, rotate: only where the run drove forward
+                if any(g < 0 for g in original):
+                    return None
+                found = self._spin_drive_spin(waypoints[i][:3], waypoints[j][:3])
+                return None if found is None or found[1] > budget else ("turn_in_place", found[0])
+            if any(kind == "turn_in_place" for kind, _ in pieces[i:j]) or not original:
+                return None
+            if all(g > 0 for g in original):
+                # a forward run can only become a forward curve: Dubins, much cheaper
+                curve = curves.dubins_shortest(waypoints[i][:3], waypoints[j][:3], radius)
+            else:
+                curve = curve_fn(waypoints[i][:3], waypoints[j][:3], radius)
+            new_gears = gears(("curve", curve))
+            if not (new_gears and new_gears[0] == original[0] and new_gears[-1] == original[-1]
+                    and changes(new_gears) <= changes(original)):
+                return None
+            found = self._curve_cost(curve, waypoints[i][:3], limit=budget)
+            return None if found is None or found[0] > budget else ("curve", curve)
+
         out_waypoints, out_pieces = [waypoints[0]], []
         i, last = 0, len(waypoints) - 1
         while i < last:
@@ -163,38 +187,10 @@ class _PathAssembly:
             span = 2
             while i + 1 < last:
                 j = min(i + span, last)
-                original = [g for piece in pieces[i:j] for g in gears(piece)]
-                budget = waypoints[j][3] - waypoints[i][3] + 1e-9
-                if spinning:
-                    # rotate, drive straight, rotate: only where the run drove forward
-                    if any(g < 0 for g in original):
-                        break
-                    found = self._spin_drive_spin(waypoints[i][:3], waypoints[j][:3])
-                    if found is None or found[1] > budget:
-                        break
-                    best = (j, ("turn_in_place", found[0]))
-                    if j == last:
-                        break
-                    span *= 2
-                    continue
-                if any(kind == "turn_in_place" for kind, _ in pieces[i:j]) or not original:
+                piece = replacement(i, j)
+                if piece is None:
                     break
-                if all(g > 0 for g in original):
-                    # a forward run can only become a forward curve: Dubins, much cheaper
-                    curve = curves.dubins_shortest(waypoints[i][:3], waypoints[j][:3], radius)
-                else:
-                    curve = curve_fn(waypoints[i][:3], waypoints[j][:3], radius)
-                replacement = gears(("curve", curve))
-                ok = (
-                    replacement
-                    and replacement[0] == original[0]
-                    and replacement[-1] == original[-1]
-                    and changes(replacement) <= changes(original)
-                )
-                found = self._curve_cost(curve, waypoints[i][:3], limit=budget) if ok else None
-                if found is None or found[0] > budget:
-                    break
-                best = (j, ("curve", curve))
+                best = (j, piece)
                 if j == last:
                     break
                 span *= 2
