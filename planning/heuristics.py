@@ -28,7 +28,7 @@ import numpy as np
 
 from veer.planning import curves
 
-__all__ = ["coarse_max", "HolonomicField", "holonomic_field", "TurningTable", "turning_table", "coarse_open_mask"]
+__all__ = ["coarse_max", "HolonomicField", "holonomic_field", "TurningTable", "turning_table", "build_turning_table", "coarse_open_mask"]
 
 log = logging.getLogger("veer.planning")
 
@@ -253,7 +253,8 @@ def _curves_digest() -> str:
     return digest.hexdigest()[:12]
 
 
-def _build_table(kind: str) -> TurningTable:
+def build_turning_table(kind: str) -> TurningTable:
+    """Compute the unit-radius table of ``kind`` ("reeds_shepp" or "dubins") from scratch, bypassing every cache."""
     n = int(round(_TABLE_RANGE / _TABLE_POS_STEP))
     values = np.arange(n + 1) * _TABLE_POS_STEP
     if kind == "reeds_shepp":
@@ -292,7 +293,7 @@ def turning_table(kind: str, spread: int = 0) -> TurningTable:
         table = None
     if table is None:
         log.debug("building the %s turning table (%s entries)", kind, np.prod(shape))
-        table = _build_table(kind)
+        table = build_turning_table(kind)
         try:
             path.parent.mkdir(parents=True, exist_ok=True)
             tmp = path.with_suffix(f".{os.getpid()}.tmp.npy")

@@ -129,6 +129,10 @@ class Planner:
                 self._grids.popitem(last=False)
         return context
 
+    def inflated_grid(self, grid: OccupancyGrid, settings: SearchSettings | None = None):
+        """The inflated grid (``veer.maps.InflatedGrid``) this planner checks ``grid`` against (cached)."""
+        return self.prepare(grid, settings).checker.inflated
+
     def _refreshed_clearance(self, grid: OccupancyGrid, settings: SearchSettings) -> np.ndarray | None:
         """The clearance field of ``grid`` updated from the last grid of the same geometry.
 

@@ -46,7 +46,7 @@ import numpy as np
 
 from veer.maps import inflate, load_map
 from veer.planning import EXAMPLE_VEHICLE, NoPath, Planner, SearchSettings
-from veer.planning.heuristics import _build_table, turning_table
+from veer.planning.heuristics import build_turning_table, turning_table
 from veer.planning.settings import DEFAULT_SEARCH_SETTINGS
 from veer.tools.bench_maps import write_map
 from veer.tools.scenarios import SCENARIO_NAMES, build_scenario, write_scenario_map
@@ -251,7 +251,7 @@ def warm_turning_tables() -> dict[str, float]:
     build_s = {}
     for kind in ("reeds_shepp", "dubins"):
         t0 = time.perf_counter()
-        _build_table(kind)
+        build_turning_table(kind)
         build_s[kind] = time.perf_counter() - t0
         turning_table(kind)
     return build_s
@@ -498,7 +498,7 @@ def format_report(
     ))
     out.append("")
 
-    rows = [[f"turning table build, {kind} (`_build_table`, once per process)", f"{s:.3f} s", _DASH, _DASH]
+    rows = [[f"turning table build, {kind} (`build_turning_table`, once per process)", f"{s:.3f} s", _DASH, _DASH]
             for kind, s in build_s.items()]
     if best is not None:
         default, wide = best

@@ -66,7 +66,7 @@ def run(args) -> int:
         (out / f"{name}.path.json").write_text(format_path_json(document), encoding="utf-8")
         picture = out / f"{name}.png"
         render_plan_picture(
-            picture, planner.prepare(grid).checker.inflated, vehicle, scenario.start, scenario.goal, poses,
+            picture, planner.inflated_grid(grid), vehicle, scenario.start, scenario.goal, poses,
             title=f"{name}: {scenario.description}",
             notes=[summary_line(document), _pose_text("start", scenario.start) + "   " + _pose_text("goal", scenario.goal)],
         )

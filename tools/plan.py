@@ -145,9 +145,8 @@ def run(args) -> int:
         if picture_path is not None:
             from veer.tools.picture import render_plan_picture
 
-            context = planner.prepare(grid)
             render_plan_picture(
-                picture_path, context.checker.inflated, vehicle, start, goal, poses,
+                picture_path, planner.inflated_grid(grid), vehicle, start, goal, poses,
                 title=f"veer plan: {Path(args.map_image).name}",
                 notes=[summary_line(document)],
             )
