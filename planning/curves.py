@@ -46,11 +46,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from veer.planning.angles import wrap_angle
 from veer.planning.errors import PlanningError
+from veer.planning.inputs import pose_argument, positive_length
 
 __all__ = [
     "CurvePath",
-    "wrap_angle",
     "integrate_segments",
     "dubins_shortest",
     "dubins_length",
@@ -60,6 +61,8 @@ __all__ = [
     "reeds_shepp_shortest_few",
     "dubins_shortest_few",
     "reeds_shepp_lengths_unit",
+    "cheapest_curves",
+    "all_curves",
 ]
 
 _PI = math.pi
@@ -86,31 +89,6 @@ _SWAP = {"L": "R", "R": "L", "S": "S"}
 # --------------------------------------------------------------------------------------
 # Angles and poses
 # --------------------------------------------------------------------------------------
-
-
-def wrap_angle(a):
-    """Wrap an angle to [-pi, pi).
-
-    Parameters
-    ----------
-    a : float or array_like
-        Angle(s) in radians.
-
-    Returns
-    -------
-    float or numpy.ndarray
-        Same shape as `a`, each value in [-pi, pi).
-
-    Examples
-    --------
-    >>> wrap_angle(3 * math.pi / 2)
-    -1.5707963267948966
-    """
-    if np.ndim(a) == 0:
-        r = (float(a) + _PI) % _TWO_PI - _PI
-        return r - _TWO_PI if r >= _PI else r
-    r = np.mod(np.asarray(a, dtype=float) + _PI, _TWO_PI) - _PI
-    return np.where(r >= _PI, r - _TWO_PI, r)
 
 
 def _mod2pi(a: float) -> float:
@@ -142,34 +120,19 @@ def _polar_np(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 def _check_radius(turn_radius_m) -> float:
     try:
-        r = float(turn_radius_m)
-    except (TypeError, ValueError):
-        r = float("nan")
-    if not (math.isfinite(r) and r > 0.0):
+        return positive_length(turn_radius_m, "turn_radius_m")
+    except PlanningError:
         raise PlanningError(
             f"turn_radius_m must be a finite number > 0, got {turn_radius_m!r}; "
             "plan turn-in-place bases without curves"
-        )
-    return r
-
-
-def _check_pose(pose, name: str) -> tuple[float, float, float]:
-    try:
-        x, y, th = (float(v) for v in pose)
-    except (TypeError, ValueError):
-        raise PlanningError(
-            f"{name} must be (x_m, y_m, heading_rad), got {pose!r}"
         ) from None
-    if not (math.isfinite(x) and math.isfinite(y) and math.isfinite(th)):
-        raise PlanningError(f"{name} must be finite (x_m, y_m, heading_rad), got {pose!r}")
-    return x, y, th
 
 
 def _relative_unit(start, goal, turn_radius_m):
     """Goal in the start's frame, lengths divided by the radius: (x, y, phi)."""
     r = _check_radius(turn_radius_m)
-    x0, y0, th0 = _check_pose(start, "start")
-    x1, y1, th1 = _check_pose(goal, "goal")
+    x0, y0, th0 = pose_argument(start, "start")
+    x1, y1, th1 = pose_argument(goal, "goal")
     c, s = math.cos(th0), math.sin(th0)
     dx, dy = x1 - x0, y1 - y0
     return (c * dx + s * dy) / r, (-s * dx + c * dy) / r, wrap_angle(th1 - th0), r
@@ -294,7 +257,7 @@ def integrate_segments(start, segments, turn_radius_m, step_m) -> np.ndarray:
         On a bad pose, radius, step or segment kind.
     """
     r = _check_radius(turn_radius_m)
-    x, y, th = _check_pose(start, "start")
+    x, y, th = pose_argument(start, "start")
     try:
         step = float(step_m)
     except (TypeError, ValueError):
@@ -697,6 +660,49 @@ def dubins_shortest_few(start, goal, turn_radius_m, count: int = 3) -> list[Curv
     """The ``count`` shortest distinct Dubins candidates, shortest first."""
     x, y, phi, r = _relative_unit(start, goal, turn_radius_m)
     return _few_paths(_dubins_candidates(x, y, phi), r, False, count)
+
+
+def cheapest_curves(start, goal, turn_radius_m, price, count: int = 1, *, reverse: bool = True) -> list[tuple[float, CurvePath]]:
+    """The ``count`` cheapest distinct curves from ``start`` to ``goal`` under ``price``, cheapest first.
+
+    Every word of the family is solved in closed form (the Reeds-Shepp candidates when
+    ``reverse``, else the six Dubins words) and priced with ``price(pattern, mags)``:
+    ``pattern`` is the word as ``((kind, gear), ...)`` with kind L / S / R and gear +1 / -1,
+    ``mags`` the unit-radius segment lengths (>= 0; a segment of length 0 is not driven).
+    A planner's own cost model thus chooses the curve: the shortest is not always the
+    cheapest once reversing and gear changes cost extra (cf. Dang, Ahn, Lee & Lee,
+    "Improved analytic expansions in hybrid A-star path planning for non-holonomic
+    robots", Applied Sciences 12:5999, 2022, on trying more than the shortest curve).
+
+    Returns ``[(price, CurvePath), ...]``; ties go to fewer cusps.
+    """
+    x, y, phi, r = _relative_unit(start, goal, turn_radius_m)
+    candidates = _rs_candidates(x, y, phi) if reverse else _dubins_candidates(x, y, phi)
+    priced = sorted(
+        ((price(pat, mags), _cusps(pat, mags), i) for i, (_, pat, mags) in enumerate(candidates))
+    )
+    out: list[tuple[float, CurvePath]] = []
+    seen = set()
+    for cost, _, i in priced:
+        _, pat, mags = candidates[i]
+        signature = tuple((k, g, round(m, 9)) for (k, g), m in zip(pat, mags) if m > _ZERO_LENGTH)
+        if signature in seen:
+            continue
+        seen.add(signature)
+        out.append((cost, _to_path(pat, mags, r, signed_word=reverse)))
+        if len(out) == count:
+            break
+    return out
+
+
+def all_curves(start, goal, turn_radius_m, *, reverse: bool = True) -> list[CurvePath]:
+    """Every solved word from ``start`` to ``goal`` (Reeds-Shepp when ``reverse``, else Dubins), unsorted.
+
+    For checks that want the whole family, such as a brute-force minimum under some cost.
+    """
+    x, y, phi, r = _relative_unit(start, goal, turn_radius_m)
+    candidates = _rs_candidates(x, y, phi) if reverse else _dubins_candidates(x, y, phi)
+    return [_to_path(pat, mags, r, signed_word=reverse) for _, pat, mags in candidates]
 
 
 def reeds_shepp_length(start, goal, turn_radius_m) -> float:

@@ -15,11 +15,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from veer.planning.costs import CostModel
 from veer.planning.errors import SearchSettingsError
 from veer.planning.settings import SearchSettings
 from veer.planning.vehicle import Vehicle
 
-__all__ = ["Primitive", "PrimitiveTable", "arc_pose", "arc_poses", "build_primitive_table"]
+__all__ = ["Primitive", "PrimitiveTable", "arc_pose", "arc_poses", "build_primitive_table", "primitive_step_m"]
 
 
 @dataclass(frozen=True)
@@ -84,7 +85,8 @@ class PrimitiveTable:
         Covering-circle centres at every sample, relative to the start position.
     gears : ndarray (P,) int
     transition_cost : ndarray (P + 1, P)
-        Cost of primitive p after primitive q (row P: the first motion of the search).
+        Cost of primitive p after primitive q (row P: the first motion of the search), from
+        the one :class:`~veer.planning.costs.CostModel`.
     """
 
     primitives: tuple
@@ -104,19 +106,31 @@ class PrimitiveTable:
     motion_length_m: np.ndarray
 
 
+def primitive_step_m(vehicle: Vehicle, settings: SearchSettings, cell_size_m: float) -> float:
+    """Arc length of one primitive: ``step_m``, or the arc that turns ``steer_levels`` bins at full lock.
+
+    Turn-in-place bases drive straight steps of four cells (at least 0.5 m) by default.
+    """
+    if settings.step_m:
+        return settings.step_m
+    if vehicle.turns_in_place:
+        return max(4 * cell_size_m, 0.5)
+    return settings.steer_levels * settings.heading_bin_rad * vehicle.min_turn_radius_m
+
+
 def _primitive_set(vehicle: Vehicle, settings: SearchSettings, cell_size_m: float) -> tuple[list[Primitive], float]:
     bin_rad = settings.heading_bin_rad
     directions = (1, -1) if settings.allow_reverse else (1,)
     prims: list[Primitive] = []
     if vehicle.turns_in_place:
-        step = settings.step_m or max(4 * cell_size_m, 0.5)
+        step = primitive_step_m(vehicle, settings, cell_size_m)
         for d in directions:
             prims.append(Primitive(d * step, 0.0, 0))
         for turn in (1, -1):
             prims.append(Primitive(0.0, 0.0, turn, rotation_rad=turn * bin_rad))
         return prims, step
     radius = vehicle.min_turn_radius_m
-    step = settings.step_m or settings.steer_levels * bin_rad * radius
+    step = primitive_step_m(vehicle, settings, cell_size_m)
     max_bins = int(math.floor(step / radius / bin_rad + 1e-9))
     if max_bins < 1:
         raise SearchSettingsError(
@@ -139,8 +153,13 @@ def build_primitive_table(
     cell_size_m: float,
     sample_step_m: float,
     circle_offsets_m: np.ndarray,
+    costs: CostModel | None = None,
 ) -> PrimitiveTable:
-    """Tabulate the primitives for every heading index of a search from ``start_heading_rad``."""
+    """Tabulate the primitives for every heading index of a search from ``start_heading_rad``.
+
+    ``costs`` defaults to the cost model of ``settings`` for ``vehicle``.
+    """
+    costs = costs or CostModel.for_vehicle(vehicle, settings)
     prims, step = _primitive_set(vehicle, settings, cell_size_m)
     bins = settings.heading_bins
     bin_rad = settings.heading_bin_rad
@@ -176,22 +195,15 @@ def build_primitive_table(
 
     gears = np.array([p.gear for p in prims])
     length = np.array([abs(p.length_m) for p in prims])
-    steer = np.array(
-        [0.0 if p.rotation_rad else abs(p.curvature_per_m) / vehicle.max_curvature_per_m for p in prims]
-    ) if not vehicle.turns_in_place else np.zeros(n_prims)
-    signed_steer = np.array([math.copysign(1.0, p.curvature_per_m) if p.curvature_per_m else 0.0 for p in prims]) * steer
-    base = length * np.where(gears < 0, settings.reverse_cost_factor, 1.0) * (1.0 + settings.steer_cost_factor * steer)
-    rotation = np.array([abs(p.rotation_rad) * reach_m for p in prims])
-    base = base + rotation
+    # wheel fraction of full lock, signed like the wheel angle (curvature per signed metre)
+    max_curvature = vehicle.max_curvature_per_m
+    wheel = [0.0 if p.rotation_rad or math.isinf(max_curvature) else p.curvature_per_m / max_curvature for p in prims]
+    ends = [(p.gear if p.length_m else 0, u) for p, u in zip(prims, wheel)]
+    base = np.array([costs.motion(p.length_m, p.gear, u) + costs.rotation(p.rotation_rad) for p, u in zip(prims, wheel)])
     transition = np.empty((n_prims + 1, n_prims))
     for q in range(n_prims):
-        gear_change = (gears != gears[q]) & (length > 0) & (length[q] > 0)
-        transition[q] = (
-            base
-            + settings.gear_change_cost_m * gear_change
-            + settings.steer_change_cost_m * np.abs(signed_steer - signed_steer[q])
-        )
-    transition[n_prims] = base
+        transition[q] = base + np.array([costs.junction(ends[q], end) for end in ends])
+    transition[n_prims] = base  # the first motion of a search follows no motion
     return PrimitiveTable(
         primitives=tuple(prims),
         step_m=step,

@@ -27,7 +27,7 @@ class SearchSettings:
         Edge of a visited-table cell (rounded to a whole number of map cells). Default:
         about half of ``step_m``, so a straight step always leaves its parent's cell.
     allow_reverse : bool
-        Reverse primitives and Reeds-Shepp (rather than Dubins) shots.
+        Reverse primitives and Reeds-Shepp (rather than Dubins) goal curves.
     reverse_cost_factor : float
         Multiplier (>= 1) on the length driven in reverse.
     gear_change_cost_m : float
@@ -45,17 +45,20 @@ class SearchSettings:
         Expansion budget; past it the answer is ``no_path`` with ``budget_exhausted``.
     max_time_s : float
         Time budget for one search; past it ``no_path`` with ``deadline``.
-    shot_interval : int
-        Try an analytic (Reeds-Shepp / Dubins) shot to the goal every this many expansions
-        when far from the goal; near it (``shot_near_m``) every expansion.
-    shot_near_m : float or None
-        Distance from the goal within which every expansion tries a shot (default 4 min turn radii).
-    shot_candidates : int
-        How many of the shortest analytic curves a shot tries, shortest first, before
-        it gives up (the shortest often grazes an obstacle where the next one does not).
-    shot_accept_ratio : float
-        A collision-free shot ends the search at once when its total cost is at most this
-        times the f-value of the node it was shot from (the least any open node
+    goal_curve_every : int
+        Analytic expansion: try a Reeds-Shepp (Dubins) curve to the exact goal from the
+        node being expanded every this many expansions when far from the goal; within
+        ``goal_curve_near_m`` ever more often, every expansion at the goal.
+    goal_curve_near_m : float or None
+        Distance from the goal within which goal curves are tried more often (default 4
+        min turn radii).
+    goal_curve_candidates : int
+        How many curves one try checks for collisions. Every word of the curve family is
+        priced with the search's own cost model and the cheapest are checked first, so
+        a curve that is short but mostly reversing loses to a slightly longer forward one.
+    goal_curve_accept_ratio : float
+        A collision-free goal curve ends the search at once when its total cost is at most
+        this times the f-value of the node it leaves from (the least any open node
         promises); a dearer one waits in the open list as a finished path, taken when
         nothing cheaper remains, and is the answer if the budget runs out first.
     goal_tolerance_m, goal_tolerance_deg : float
@@ -69,7 +72,7 @@ class SearchSettings:
     heuristic_weight : float
         Weight w >= 1 on h (weighted A*, Pohl 1970): the path costs at most w times the
         best at this resolution, and the search expands fewer nodes.
-    use_heuristic_field, use_turning_heuristic, use_analytic_shots : bool
+    use_heuristic_field, use_turning_heuristic, use_goal_curves : bool
         Switch off parts of the method; all off gives the plain textbook mode
         (Euclidean heuristic only) used as the benchmark baseline.
     smooth : bool
@@ -78,7 +81,7 @@ class SearchSettings:
         within the limit.
     goal_test_lattice : bool
         Also stop on reaching the goal's lattice cell and heading bin, the goal test of
-        grid A*. Without analytic shots a search seldom lands within the goal tolerance,
+        grid A*. Without goal curves a search seldom lands within the goal tolerance,
         so the plain baseline uses this; its path then ends up to a lattice cell short of
         the goal and is for measurement only, not for driving.
     """
@@ -96,10 +99,10 @@ class SearchSettings:
     clearance_range_m: float = 1.0
     max_expansions: int = 200_000
     max_time_s: float = 10.0
-    shot_interval: int = 8
-    shot_near_m: float | None = None
-    shot_candidates: int = 1
-    shot_accept_ratio: float = 1.4
+    goal_curve_every: int = 8
+    goal_curve_near_m: float | None = None
+    goal_curve_candidates: int = 3
+    goal_curve_accept_ratio: float = 1.4
     goal_tolerance_m: float = 0.2
     goal_tolerance_deg: float = 5.0
     output_step_m: float = 0.25
@@ -107,7 +110,7 @@ class SearchSettings:
     refine_on_exhaustion: bool = True
     use_heuristic_field: bool = True
     use_turning_heuristic: bool = True
-    use_analytic_shots: bool = True
+    use_goal_curves: bool = True
     goal_test_lattice: bool = False
     smooth: bool = True
 
@@ -121,16 +124,16 @@ class SearchSettings:
             if not low <= value <= high:
                 raise SearchSettingsError(f"search setting {name} must be in [{low}, {high}], got {value}")
 
-        for name in ("heading_bins", "steer_levels", "max_expansions", "shot_interval", "shot_candidates"):
+        for name in ("heading_bins", "steer_levels", "max_expansions", "goal_curve_every", "goal_curve_candidates"):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, int):
                 raise SearchSettingsError(f"search setting {name} must be a whole number, got {value!r}")
         number("heading_bins", 8, 720)
         number("steer_levels", 1, 8)
         number("max_expansions", 1, 10**9)
-        number("shot_interval", 1, 10**6)
-        number("shot_candidates", 1, 64)
-        number("shot_accept_ratio", 1.0, 100.0)
+        number("goal_curve_every", 1, 10**6)
+        number("goal_curve_candidates", 1, 64)
+        number("goal_curve_accept_ratio", 1.0, 100.0)
         number("step_m", 1e-3, 100.0, optional=True)
         number("lattice_cell_m", 1e-3, 100.0, optional=True)
         number("reverse_cost_factor", 1.0, 100.0)
@@ -140,12 +143,12 @@ class SearchSettings:
         number("clearance_cost_factor", 0.0, 100.0)
         number("clearance_range_m", 0.0, 100.0)
         number("max_time_s", 1e-3, 1e6)
-        number("shot_near_m", 0.0, 1e6, optional=True)
+        number("goal_curve_near_m", 0.0, 1e6, optional=True)
         number("goal_tolerance_m", 1e-6, 100.0)
         number("goal_tolerance_deg", 1e-6, 180.0)
         number("output_step_m", 1e-3, 0.25)
         number("heuristic_weight", 1.0, 10.0)
-        for name in ("allow_reverse", "refine_on_exhaustion", "goal_test_lattice", "smooth", "use_heuristic_field", "use_turning_heuristic", "use_analytic_shots"):
+        for name in ("allow_reverse", "refine_on_exhaustion", "goal_test_lattice", "smooth", "use_heuristic_field", "use_turning_heuristic", "use_goal_curves"):
             if not isinstance(getattr(self, name), bool):
                 raise SearchSettingsError(f"search setting {name} must be true or false")
 
@@ -154,9 +157,9 @@ class SearchSettings:
         return 2.0 * math.pi / self.heading_bins
 
     def plain(self) -> "SearchSettings":
-        """The textbook baseline: same search, Euclidean heuristic only, no shots."""
+        """The textbook baseline: same search, Euclidean heuristic only, no goal curves."""
         return replace(
-            self, use_heuristic_field=False, use_turning_heuristic=False, use_analytic_shots=False,
+            self, use_heuristic_field=False, use_turning_heuristic=False, use_goal_curves=False,
             heuristic_weight=1.0, goal_test_lattice=True, smooth=False,
         )
 
