@@ -491,6 +491,21 @@ def _dubins_candidates(x, y, phi):
     return out
 
 
+def _priced_family(x, y, phi, reverse: bool):
+    """Words for choosing by cost: the Reeds-Shepp set plus the Dubins words driven all forward and all in reverse.
+
+    The Reeds-Shepp set is sufficient for length only; once reversing and gear changes
+    cost extra, a cusp-free CCC word (Dubins, never shortest with reverse allowed) can be
+    the cheapest, so it joins the family, as does its timeflip, driven wholly in reverse.
+    """
+    if not reverse:
+        return _dubins_candidates(x, y, phi)
+    backward = [
+        (length, tuple((k, -g) for k, g in pat), mags) for length, pat, mags in _dubins_candidates(-x, y, -phi)
+    ]
+    return _rs_candidates(x, y, phi) + _dubins_candidates(x, y, phi) + backward
+
+
 def _cusps(pat, mags) -> int:
     gears = [g for (_, g), m in zip(pat, mags) if m > _ZERO_LENGTH]
     return sum(1 for g0, g1 in zip(gears, gears[1:]) if g0 != g1)
@@ -665,8 +680,9 @@ def dubins_shortest_few(start, goal, turn_radius_m, count: int = 3) -> list[Curv
 def cheapest_curves(start, goal, turn_radius_m, price, count: int = 1, *, reverse: bool = True) -> list[tuple[float, CurvePath]]:
     """The ``count`` cheapest distinct curves from ``start`` to ``goal`` under ``price``, cheapest first.
 
-    Every word of the family is solved in closed form (the Reeds-Shepp candidates when
-    ``reverse``, else the six Dubins words) and priced with ``price(pattern, mags)``:
+    Every word of the family is solved in closed form (with ``reverse``: the Reeds-Shepp
+    candidates and the Dubins words driven all forward or all in reverse; else the six
+    Dubins words) and priced with ``price(pattern, mags)``:
     ``pattern`` is the word as ``((kind, gear), ...)`` with kind L / S / R and gear +1 / -1,
     ``mags`` the unit-radius segment lengths (>= 0; a segment of length 0 is not driven).
     A planner's own cost model thus chooses the curve: the shortest is not always the
@@ -677,7 +693,7 @@ def cheapest_curves(start, goal, turn_radius_m, price, count: int = 1, *, revers
     Returns ``[(price, CurvePath), ...]``; ties go to fewer cusps.
     """
     x, y, phi, r = _relative_unit(start, goal, turn_radius_m)
-    candidates = _rs_candidates(x, y, phi) if reverse else _dubins_candidates(x, y, phi)
+    candidates = _priced_family(x, y, phi, reverse)
     priced = sorted(
         ((price(pat, mags), _cusps(pat, mags), i) for i, (_, pat, mags) in enumerate(candidates))
     )
@@ -696,12 +712,12 @@ def cheapest_curves(start, goal, turn_radius_m, price, count: int = 1, *, revers
 
 
 def all_curves(start, goal, turn_radius_m, *, reverse: bool = True) -> list[CurvePath]:
-    """Every solved word from ``start`` to ``goal`` (Reeds-Shepp when ``reverse``, else Dubins), unsorted.
+    """Every solved word from ``start`` to ``goal``, unsorted: the family :func:`cheapest_curves` prices.
 
     For checks that want the whole family, such as a brute-force minimum under some cost.
     """
     x, y, phi, r = _relative_unit(start, goal, turn_radius_m)
-    candidates = _rs_candidates(x, y, phi) if reverse else _dubins_candidates(x, y, phi)
+    candidates = _priced_family(x, y, phi, reverse)
     return [_to_path(pat, mags, r, signed_word=reverse) for _, pat, mags in candidates]
 
 

@@ -167,11 +167,12 @@ def run_search(
         if (dist_goal <= tol_m and abs(wrap_angle(heading - gh)) <= tol_rad) or key == goal_key:
             finish = (i, None, 0.0)
             break
-        # goal curves from the start, then every `every` expansions, more often near the goal
-        if use_curves and heur.worthy(key // bins, k) and (
-            expansions == 1
-            or expansions % (every if dist_goal > near_m else max(1, int(every * dist_goal / near_m))) == 0
-        ):
+        # goal curves from the start always, then every `every` expansions (more often near
+        # the goal) where obstacles do not clearly stand in the way
+        if use_curves and (expansions == 1 or (
+            expansions % (every if dist_goal > near_m else max(1, int(every * dist_goal / near_m))) == 0
+            and heur.worthy(key // bins, k)
+        )):
             curves_tried += 1
             found = to_goal(x, y, heading, prim_ends[prim_in] if prim_in < n_prims else None)
             if found is not None and g + found[1] < best_curve_cost:
