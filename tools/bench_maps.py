@@ -28,11 +28,11 @@ import numpy as np
 
 from veer.maps import clearance_field_m, inflate, load_map
 
-FLOOR, OBSTACLE, UNKNOWN_SHADE = 254, 0, 160
+FLOOR, OBSTACLE, UNKNOWN_SHADE = 255, 0, 160
 
 
 def build_map(size: int, *, seed: int = 1, rectangles: int | None = None) -> np.ndarray:
-    """Return a (size, size) uint8 image of random rectangles: 0 obstacles, 160 unknown, 254 floor."""
+    """Return a (size, size) uint8 image of random rectangles: 0 obstacles, 160 unknown, 255 floor."""
     rng = np.random.default_rng(seed)
     if rectangles is None:
         rectangles = max(1, size * size // 40_000)

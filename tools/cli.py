@@ -4,7 +4,8 @@ Subcommands (``veer SUBCOMMAND --help`` for each):
 
   plan     plan once on a map image and write the path JSON (and a picture)
   demo     plan the built-in scenarios and write maps, paths and pictures
-  node     run the ZeroMQ planner node            (not built yet in this version)
+  check    plan scenario files and compare each result with its expectations
+  node     run the ZeroMQ planner node
   replay   replay a recorded log offline           (not built yet in this version)
 
 Exit codes: 0 done (a path was found), 1 valid request but no path, 2 bad input.
@@ -13,18 +14,21 @@ Exit codes: 0 done (a path was found), 1 valid request but no path, 2 bad input.
 from __future__ import annotations
 
 import argparse
+import importlib
 import logging
 import sys
 
-__all__ = ["main", "build_parser", "UsageError"]
+from veer.tools.errors import EXIT_BAD_INPUT, EXIT_OK, UsageError, bad_input_errors
 
-EXIT_OK = 0
-EXIT_NO_PATH = 1
-EXIT_BAD_INPUT = 2
+__all__ = ["main", "build_parser", "SUBCOMMANDS"]
 
+SUBCOMMANDS = ("plan", "demo", "check", "node")
+"""Subcommand modules under ``veer.tools``: each has ``add_arguments(parser)``, ``run(args) -> int``
+and a docstring whose first line is the one-line help and whole text the description."""
 
-class UsageError(Exception):
-    """A bad command line: printed as one line, exit code 2."""
+_NOT_BUILT = {
+    "replay": ("replay a recorded log offline (not built yet in this version)", ("log",), ("--config", "--out")),
+}
 
 
 class _Parser(argparse.ArgumentParser):
@@ -34,10 +38,12 @@ class _Parser(argparse.ArgumentParser):
         raise UsageError(f"{self.prog}: {message} (see '{self.prog} --help')")
 
 
-def build_parser() -> argparse.ArgumentParser:
-    from veer.tools import demo as demo_command
-    from veer.tools import plan as plan_command
+def _command_module(name: str):
+    return importlib.import_module(f"veer.tools.{name}")
 
+
+def build_parser() -> argparse.ArgumentParser:
+    """The ``veer`` parser with one sub-parser per entry of :data:`SUBCOMMANDS` (and the stubs)."""
     parser = _Parser(
         prog="veer",
         description=__doc__.split("\n\n")[0],
@@ -46,24 +52,20 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("-v", "--verbose", action="store_true", help="log debug detail on stderr")
     sub = parser.add_subparsers(dest="command", metavar="SUBCOMMAND", parser_class=_Parser)
-
-    plan_command.add_arguments(
-        sub.add_parser("plan", help="plan once on a map image and write the path JSON",
-                       description=plan_command.__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    )
-    demo_command.add_arguments(
-        sub.add_parser("demo", help="plan the built-in scenarios; write maps, paths and pictures",
-                       description=demo_command.__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    )
-    node = sub.add_parser("node", help="run the ZeroMQ planner node (not built yet in this version)",
-                          description="Run the planner node. Not built yet in this version.")
-    node.add_argument("--config", metavar="NODE.toml")
-    node.add_argument("--vehicle", metavar="VEHICLE.toml")
-    replay = sub.add_parser("replay", help="replay a recorded log offline (not built yet in this version)",
-                            description="Replay a recorded log offline. Not built yet in this version.")
-    replay.add_argument("log", metavar="LOG")
-    replay.add_argument("--config", metavar="NODE.toml")
-    replay.add_argument("--out", metavar="REPORT_DIR")
+    for name in SUBCOMMANDS:
+        module = _command_module(name)
+        doc = (module.__doc__ or name).strip()
+        summary = doc.splitlines()[0].rstrip(".")
+        module.add_arguments(
+            sub.add_parser(name, help=summary[:1].lower() + summary[1:], description=doc,
+                           formatter_class=argparse.RawDescriptionHelpFormatter)
+        )
+    for name, (summary, positionals, options) in _NOT_BUILT.items():
+        stub = sub.add_parser(name, help=summary, description=summary[:1].upper() + summary[1:] + ".")
+        for positional in positionals:
+            stub.add_argument(positional, metavar=positional.upper())
+        for option in options:
+            stub.add_argument(option)
     return parser
 
 
@@ -83,19 +85,17 @@ def main(argv: list[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return EXIT_OK
-    if args.command in ("node", "replay"):
+    if args.command in _NOT_BUILT:
         print(
             f"veer {args.command}: not built yet in this version; 'veer plan' plans once on a map image",
             file=sys.stderr,
         )
         return EXIT_BAD_INPUT
-    if args.command == "plan":
-        from veer.tools.plan import run
-
-        return run(args)
-    from veer.tools.demo import run
-
-    return run(args)
+    try:
+        return _command_module(args.command).run(args)
+    except bad_input_errors() as error:
+        print(f"veer {args.command}: {error}", file=sys.stderr)
+        return EXIT_BAD_INPUT
 
 
 if __name__ == "__main__":  # pragma: no cover

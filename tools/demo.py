@@ -16,19 +16,22 @@ import sys
 import time
 from pathlib import Path
 
+from veer.tools.errors import EXIT_NO_PATH, EXIT_OK, UsageError
+
 __all__ = ["add_arguments", "run"]
 
 
 def add_arguments(parser) -> None:
+    """Add the ``veer demo`` arguments to an argparse parser."""
     parser.add_argument("--out", default="veer-demo", metavar="DIR",
                         help="folder for maps, paths and pictures (created if missing; default ./veer-demo)")
 
 
 def run(args) -> int:
+    """Carry out ``veer demo``; returns the exit code (see the module docstring)."""
     from veer.maps import load_map
     from veer.planning import EXAMPLE_VEHICLE, NoPath, Planner, SearchSettings
     from veer.planning.path import no_path_document
-    from veer.tools.cli import EXIT_BAD_INPUT, EXIT_NO_PATH, EXIT_OK
     from veer.tools.picture import render_plan_picture
     from veer.tools.plan import format_path_json, summary_line
     from veer.tools.scenarios import DEMO_SCENARIO, SCENARIO_NAMES, build_scenario, write_scenario_map
@@ -37,8 +40,7 @@ def run(args) -> int:
     try:
         (out / "maps").mkdir(parents=True, exist_ok=True)
     except OSError as error:
-        print(f"veer demo: cannot create {out}: {error.strerror or error}; choose another --out", file=sys.stderr)
-        return EXIT_BAD_INPUT
+        raise UsageError(f"cannot create {out}: {error.strerror or error}; choose another --out") from None
 
     names = [DEMO_SCENARIO] + [n for n in SCENARIO_NAMES if n != DEMO_SCENARIO]
     vehicle = EXAMPLE_VEHICLE

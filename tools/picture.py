@@ -59,7 +59,7 @@ START_BGR = (0, 160, 0)  # green
 GOAL_BGR = (200, 0, 200)  # magenta
 
 DEFAULT_GOAL_TOLERANCE_M = 0.2
-"""Radius of the goal tolerance circle when the caller gives none (the contract's default)."""
+"""Radius of the goal tolerance circle when the caller gives none (docs/files.md, "Path JSON": 0.2 m)."""
 
 _TEXT_BGR = (20, 20, 20)
 _NOTE_BGR = (60, 60, 60)

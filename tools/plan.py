@@ -10,24 +10,42 @@ Exit codes: 0 a path was found, 1 no path (the JSON says why), 2 bad input.
 
 from __future__ import annotations
 
+import argparse
 import json
 import logging
 import math
 import sys
 from pathlib import Path
 
+from veer.tools.errors import EXIT_NO_PATH, EXIT_OK, UsageError
+
 __all__ = ["add_arguments", "run", "format_path_json", "summary_line"]
 
 log = logging.getLogger("veer.tools")
 
 
+def _cell_size_m(text: str) -> float:
+    """argparse type of --cell-size: a number of metres, range-checked by veer.maps itself."""
+    from veer.maps import MapSettings, MapSettingsError
+
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number; give the edge of one map cell in metres") from None
+    try:
+        return MapSettings(cell_size_m=value).cell_size_m
+    except MapSettingsError as error:
+        raise argparse.ArgumentTypeError(str(error)) from None
+
+
 def add_arguments(parser) -> None:
+    """Add the ``veer plan`` arguments to an argparse parser."""
     parser.add_argument("map_image", metavar="MAP_IMAGE", help="PGM or PNG occupancy map")
     parser.add_argument("--start", nargs=3, type=float, required=True, metavar=("X", "Y", "HEADING_DEG"),
                         help="start pose: metres, metres, degrees counter-clockwise from +x")
     parser.add_argument("--goal", nargs=3, type=float, required=True, metavar=("X", "Y", "HEADING_DEG"),
                         help="goal pose: metres, metres, degrees")
-    parser.add_argument("--cell-size", type=float, metavar="METRES",
+    parser.add_argument("--cell-size", type=_cell_size_m, metavar="METRES",
                         help="edge of one map cell; overrides the sidecar's cell_size_m")
     parser.add_argument("--vehicle", metavar="VEHICLE.toml", help="vehicle file (default: the example vehicle)")
     gear = parser.add_mutually_exclusive_group()
@@ -71,43 +89,33 @@ def summary_line(document: dict) -> str:
 
 
 def _check_output_path(value: str | None, flag: str, suffix: str) -> Path | None:
-    from veer.tools.cli import UsageError
-
     if value is None:
         return None
     path = Path(value)
     if path.is_dir():
-        raise UsageError(f"veer plan: {flag} {value} is a folder; give a file name ending in {suffix}")
+        raise UsageError(f"{flag} {value} is a folder; give a file name ending in {suffix}")
     if path.suffix.lower() != suffix:
-        raise UsageError(f"veer plan: {flag} {value}: the file name must end in {suffix}")
+        raise UsageError(f"{flag} {value}: the file name must end in {suffix}")
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.is_dir():
-        raise UsageError(f"veer plan: {flag} {value}: folder {folder} does not exist; create it first")
+        raise UsageError(f"{flag} {value}: folder {folder} does not exist; create it first")
     return path
 
 
 def run(args) -> int:
-    """Carry out ``veer plan``; returns the exit code of the contract."""
-    from veer.maps import MAX_CELL_SIZE_M, MIN_CELL_SIZE_M, MapError, load_map
-    from veer.planning import EXAMPLE_VEHICLE, NoPath, Planner, PlanningError, SearchSettings, load_vehicle
-    from veer.planning.path import no_path_document
-    from veer.tools.cli import EXIT_BAD_INPUT, EXIT_NO_PATH, EXIT_OK, UsageError
+    """Carry out ``veer plan``; returns the exit code (see the module docstring).
 
-    try:
-        out_path = _check_output_path(args.out, "--out", ".json")
-        if args.cell_size is not None and not (
-            math.isfinite(args.cell_size) and MIN_CELL_SIZE_M <= args.cell_size <= MAX_CELL_SIZE_M
-        ):
-            raise UsageError(
-                f"veer plan: --cell-size {args.cell_size:g} is out of range; give the edge of one map cell in "
-                f"metres, between {MIN_CELL_SIZE_M} and {MAX_CELL_SIZE_M:g}"
-            )
-        picture_path = _check_output_path(args.picture, "--picture", ".png")
-        vehicle = load_vehicle(args.vehicle) if args.vehicle else EXAMPLE_VEHICLE
-        grid = load_map(args.map_image, cell_size_m=args.cell_size)
-    except (UsageError, MapError, PlanningError) as error:
-        print(f"veer plan: {error}" if not str(error).startswith("veer plan") else str(error), file=sys.stderr)
-        return EXIT_BAD_INPUT
+    Bad input (UsageError, MapError, PlanningError) propagates to ``veer.tools.cli.main``,
+    which prints it as one line and exits 2.
+    """
+    from veer.maps import load_map
+    from veer.planning import EXAMPLE_VEHICLE, NoPath, Planner, SearchSettings, load_vehicle
+    from veer.planning.path import no_path_document
+
+    out_path = _check_output_path(args.out, "--out", ".json")
+    picture_path = _check_output_path(args.picture, "--picture", ".png")
+    vehicle = load_vehicle(args.vehicle) if args.vehicle else EXAMPLE_VEHICLE
+    grid = load_map(args.map_image, cell_size_m=args.cell_size)
 
     if sys.stderr.isatty():  # a person is watching: say what is being planned on
         print(
@@ -124,15 +132,12 @@ def run(args) -> int:
         document = path.to_document()
         poses = path.poses
         code = EXIT_OK
-    except PlanningError as error:  # start/goal off the map or in collision
-        print(f"veer plan: {error}", file=sys.stderr)
-        return EXIT_BAD_INPUT
     except NoPath as no_path:
         document = no_path_document(no_path.reason, no_path.detail, no_path.stats)
         code = EXIT_NO_PATH
     log.info(
-        "plan map_id=%s status=%s length_m=%s expansions=%s plan_s=%s",
-        grid.map_id, document["status"], document["length_m"],
+        "plan map_id=%s status=%s reason=%s length_m=%s expansions=%s plan_s=%s",
+        grid.map_id, document["status"], document["reason"], document["length_m"],
         document["stats"].get("expansions"), document["stats"].get("plan_s"),
     )
 
@@ -151,7 +156,6 @@ def run(args) -> int:
                 notes=[summary_line(document)],
             )
     except OSError as error:
-        print(f"veer plan: cannot write output: {error}", file=sys.stderr)
-        return EXIT_BAD_INPUT
+        raise UsageError(f"cannot write output: {error}") from None
     print(summary_line(document), file=sys.stderr)
     return code

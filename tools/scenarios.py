@@ -52,7 +52,7 @@ DEMO_SCENARIO = "parking_bay"
 
 # Shades written to scenario map images; the sidecar thresholds (100, 200) classify them back.
 # Unknown must lie between the thresholds (a shade above free_above reads as free).
-_PIXEL_FREE = 254
+_PIXEL_FREE = 255
 _PIXEL_OCCUPIED = 0
 _PIXEL_UNKNOWN = 128
 _SIDECAR_OCCUPIED_BELOW = 100
@@ -470,7 +470,7 @@ def build_scenario(name: str) -> Scenario:
 def write_scenario_map(scenario: Scenario, directory: str | Path) -> Path:
     """Write the scenario's map as ``NAME.pgm`` (binary P5) with its ``NAME.toml`` sidecar.
 
-    Free cells are written as 254, occupied as 0 and unknown as 128; the sidecar's
+    Free cells are written as 255, occupied as 0 and unknown as 128; the sidecar's
     thresholds (``occupied_below = 100``, ``free_above = 200``) read them back as the same
     classes, so ``veer plan DIR/NAME.pgm`` plans on exactly this grid.
 

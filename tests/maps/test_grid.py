@@ -11,8 +11,8 @@ from veer.maps import FREE, OCCUPIED, UNKNOWN, MapFormatError, MapSettingsError,
 
 # A 3 x 4 grid of 0.25 m cells whose lower-left corner is at (-1.5, 2.0): it covers
 # x in [-1.5, -0.5) and y in [2.0, 2.75). All values below are exact in binary.
-# source: worked by hand from the veer contract section 2 (row 0 is the top edge, origin_m is the
-# world point of the lower-left corner, y up)
+# worked by hand from the rules of docs/files.md, "Map image" (row 0 is the top edge, origin_m is
+# the world point of the lower-left corner, y up)
 ROWS, COLS, CS, ORIGIN = 3, 4, 0.25, (-1.5, 2.0)
 
 

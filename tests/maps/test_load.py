@@ -41,7 +41,7 @@ def _write(tmp_path, name, data, sidecar=None):
 
 
 def test_load_pgm_with_sidecar(tmp_path, pgm_bytes):
-    # source: veer contract section 2 (dark = occupied, light = free, mid grey = unknown; sidecar keys)
+    # docs/files.md, "Map image" and "Map sidecar" (dark = occupied, light = free, mid grey = unknown)
     shades = np.array([[0, 255, 150], [99, 201, 100]], dtype=np.uint8)
     path = _write(tmp_path, "yard.pgm", pgm_bytes(shades, 255), SIDECAR)
     grid = load_map(path)
@@ -55,7 +55,7 @@ def test_load_pgm_with_sidecar(tmp_path, pgm_bytes):
 
 
 def test_load_png_with_sidecar(tmp_path, png_bytes):
-    # source: PNG 1.2 specification (grey 8-bit) and veer contract section 2
+    # source: PNG 1.2 specification (grey 8-bit); classes as in docs/files.md, "Map sidecar"
     shades = np.array([[10, 250], [150, 30]])
     path = _write(tmp_path, "hall.png", png_bytes(shades, depth=8, colour=0), "cell_size_m = 0.2\n")
     grid = load_map(path)
@@ -64,14 +64,14 @@ def test_load_png_with_sidecar(tmp_path, png_bytes):
 
 
 def test_pixels_exactly_on_the_thresholds(tmp_path, pgm_bytes):
-    # source: veer contract section 2 ("below this is an obstacle", "above this is free"; between: unknown)
+    # docs/files.md, "Map sidecar" ("below this is an obstacle", "above this is free"; between: unknown)
     shades = np.array([[99, 100, 101, 199, 200, 201]], dtype=np.uint8)
     grid = load_map(_write(tmp_path, "edge.pgm", pgm_bytes(shades, 255), "cell_size_m = 1.0\n"))
     np.testing.assert_array_equal(grid.classes, [[OCCUPIED, UNKNOWN, UNKNOWN, UNKNOWN, UNKNOWN, FREE]])
 
 
 def test_16bit_image_uses_the_8bit_scale(tmp_path, pgm_bytes, png_bytes):
-    # source: veer contract section 2 (a pixel counts as value * 255 / maxval): 25700 * 255 / 65535 = 100
+    # docs/files.md, "Map image" (a pixel counts as value * 255 / maxval): 25700 * 255 / 65535 = 100
     # and 51400 * 255 / 65535 = 200 exactly
     shades = np.array([[25699, 25700, 51400, 51401]])
     expected = [[OCCUPIED, UNKNOWN, UNKNOWN, FREE]]
@@ -85,7 +85,7 @@ def test_16bit_image_uses_the_8bit_scale(tmp_path, pgm_bytes, png_bytes):
 
 
 def test_custom_thresholds_and_unknown_is():
-    # source: veer contract section 2 (thresholds in the sidecar, on the 8-bit scale)
+    # docs/files.md, "Map sidecar" (thresholds on the 8-bit scale)
     pixels = np.array([[0.0, 49.9, 50.0, 60.0, 60.1, 255.0]], dtype=np.float32)
     classes = classify(pixels, MapSettings(occupied_below=50, free_above=60))
     np.testing.assert_array_equal(classes, [[OCCUPIED, OCCUPIED, UNKNOWN, UNKNOWN, FREE, FREE]])
@@ -172,7 +172,7 @@ def test_sidecar_not_utf8_and_unreadable(tmp_path):
 
 
 def test_sidecar_defaults():
-    # source: veer contract section 2 (the example sidecar's values are the defaults, cell size aside)
+    # docs/files.md, "Map sidecar" (the table's defaults; no default cell size)
     settings = MapSettings()
     assert (settings.cell_size_m, settings.origin_m, settings.occupied_below, settings.free_above, settings.unknown_is) == (
         None, (0.0, 0.0), 100.0, 200.0, "blocked")
@@ -214,7 +214,7 @@ def test_too_many_cells(tmp_path, pgm_bytes):
 
 
 def test_error_codes_and_tree():
-    # source: veer contract section 3 (control answers carry a short "code")
+    # docs/protocol.md (control answers carry a short "code")
     from veer.maps import GridMessageError
 
     assert MapError.code == "bad_map"

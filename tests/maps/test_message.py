@@ -1,4 +1,4 @@
-"""grid_from_message: the contract's grid message in, a grid out; every malformed field named."""
+"""grid_from_message: the node's grid message in, a grid out; every malformed field named."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ EXPECTED = [[OCCUPIED, FREE, UNKNOWN], [FREE, FREE, OCCUPIED]]
 
 
 def _message(**fields):
-    # source: veer contract section 3 (grid message fields)
+    # docs/protocol.md (grid message fields)
     base = {
         "v": 1,
         "kind": "grid",

@@ -92,7 +92,7 @@ def test_read_image_dispatches_on_magic():
 
 
 def test_pixels_on_8bit_scale():
-    # source: veer contract section 2 (a pixel counts as value * 255 / maxval)
+    # docs/files.md, "Map image" (a pixel counts as value * 255 / maxval)
     samples = np.array([[0, 5, 15]], dtype=np.uint8)
     pixels = pixels_on_8bit_scale(samples, 15)
     assert pixels.dtype == np.float32

@@ -85,8 +85,8 @@ def _relative(start, goal, r):
 @pytest.mark.parametrize("r", RADII_M)
 @pytest.mark.parametrize("d", [0.3, 2.0, 9.5])
 def test_straight_ahead_is_the_distance(r, d):
-    # source: METHODS.md section 2 check values; |dxy| is a lower bound (Reeds & Shepp
-    # 1990) that a straight attains
+    # source: Dubins 1957 and Reeds & Shepp 1990 (check values in docs/reference.md): |dxy| is a
+    # lower bound that a straight attains
     for family in (dubins_shortest, reeds_shepp_shortest):
         path = family((0, 0, 0), (d, 0, 0), r)
         assert path.length_m == pytest.approx(d, abs=1e-12)
@@ -97,7 +97,7 @@ def test_straight_ahead_is_the_distance(r, d):
 @pytest.mark.parametrize("r", RADII_M)
 @pytest.mark.parametrize("d", [0.3, 2.0, 9.5])
 def test_straight_behind_is_reversing_the_distance(r, d):
-    # source: METHODS.md section 2 check values (Reeds-Shepp, timeflip of the straight)
+    # source: Reeds & Shepp 1990, section 8 (timeflip of the straight; docs/reference.md check values)
     path = reeds_shepp_shortest((0, 0, 0), (-d, 0, 0), r)
     assert path.length_m == pytest.approx(d, abs=1e-12)
     assert path.reverse_length_m == pytest.approx(d, abs=1e-12)
@@ -111,7 +111,8 @@ def test_straight_behind_is_reversing_the_distance(r, d):
 def test_quarter_circle_is_one_arc(r):
     # Degenerate case: the zero-length straight of LSL must not drop the word (a 5x
     # longer path would come back).
-    # source: METHODS.md section 2 check values and pitfalls
+    # source: Dubins 1957 / Reeds & Shepp 1990, check value (1, 1, pi/2) = pi/2 and the LSL pitfall
+    # of docs/reference.md
     for family in (dubins_shortest, reeds_shepp_shortest):
         path = family((0, 0, 0), (r, r, PI / 2), r)
         assert path.length_m == pytest.approx(PI / 2 * r, abs=1e-9)
@@ -124,7 +125,7 @@ def test_quarter_circle_is_one_arc(r):
 @pytest.mark.parametrize("start_heading", [0.0, 0.3, -2.0, PI / 2, PI])
 def test_any_single_arc_up_to_half_a_turn_is_returned_as_itself(r, start_heading):
     # An arc of angle a <= pi is optimal: it attains the lower bound r |dtheta|
-    # (METHODS.md section 2, L_RS >= r |wrap(dtheta)|, and L_Dubins >= L_RS). Goals are
+    # (L_RS >= r |wrap(dtheta)| and L_Dubins >= L_RS, docs/reference.md, derived). Goals are
     # the ends of the arcs, so the straights and other arcs of the words are all zero:
     # the degenerate cases of the formulas.
     start = (1.0, -2.0, start_heading)
@@ -142,14 +143,15 @@ def test_any_single_arc_up_to_half_a_turn_is_returned_as_itself(r, start_heading
 
 @pytest.mark.parametrize("r", RADII_M)
 def test_half_circle_u_turn(r):
-    # source: METHODS.md section 2 check values: (0, 2, pi) costs pi (unit r)
+    # source: Dubins 1957 / Reeds & Shepp 1990, check value (0, 2, pi) = pi, unit r (docs/reference.md)
     for family in (dubins_shortest, reeds_shepp_shortest):
         assert family((0, 0, 0), (0, 2 * r, PI), r).length_m == pytest.approx(PI * r, abs=1e-9)
 
 
 @pytest.mark.parametrize("r", RADII_M)
 def test_dubins_turn_on_the_spot_is_seven_thirds_pi(r):
-    # source: METHODS.md section 2 check values: Dubins (0,0,0) -> (0,0,pi) = 7 pi / 3
+    # source: Dubins 1957 (LaValle 2006, section 15.3.1), check value (0,0,0) -> (0,0,pi) = 7 pi / 3
+    # of docs/reference.md
     # (LRL or RLR, middle arc 5 pi / 3)
     path = dubins_shortest((0, 0, 0), (0, 0, PI), r)
     assert path.length_m == pytest.approx(7 * PI / 3 * r, abs=1e-9)
@@ -159,7 +161,7 @@ def test_dubins_turn_on_the_spot_is_seven_thirds_pi(r):
 @pytest.mark.parametrize("r", RADII_M)
 @pytest.mark.parametrize("eps", [1e-3, 1e-6])
 def test_dubins_tiny_heading_change_costs_a_full_loop(r, eps):
-    # source: METHODS.md section 2 check values: Dubins -> (0, 0, eps) tends to 2 pi
+    # source: Dubins 1957, check value (0, 0, eps) -> 2 pi (docs/reference.md)
     assert dubins_length((0, 0, 0), (0, 0, eps), r) == pytest.approx(2 * PI * r, abs=2 * eps * r)
     # Reeds-Shepp is continuous there: the lower bound r |dtheta| is attained by
     # L+R-L+ with tiny arcs (derived: the C|C|C heading change equals its length)
@@ -199,7 +201,7 @@ def test_kim_cheong_bound_on_dubins_excess():
 @QUICK
 @given(a=poses, b=poses, r=radii_m)
 def test_reeds_shepp_bounds_and_symmetry(a, b, r):
-    # source: METHODS.md section 2 property tests (derived): L_RS(a,b) = L_RS(b,a),
+    # source: Reeds & Shepp 1990 / Dubins 1957, properties (derived, docs/reference.md): L_RS(a,b) = L_RS(b,a),
     # |dxy| <= L_RS <= L_Dubins, L_RS >= r |wrap(dtheta)|
     ab = reeds_shepp_length(a, b, r)
     tol = 1e-9 * (1.0 + ab)
@@ -236,7 +238,7 @@ def test_lengths_do_not_depend_on_the_frame(a, b, r, shift, turn):
 
 
 def test_vectorised_lengths_equal_the_scalar_ones():
-    # the heuristic table and the analytic shot must agree (derived requirement)
+    # the heuristic table and the analytic expansion must agree (derived requirement)
     rng = np.random.default_rng(5)
     n = 300
     x, y = rng.uniform(-6, 6, n), rng.uniform(-6, 6, n)

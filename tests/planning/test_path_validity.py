@@ -1,6 +1,6 @@
-"""The path JSON document: its keys and types, and every contract rule checked on real plans.
+"""The path JSON document: its keys and types, and every rule of docs/files.md checked on real plans.
 
-The rules are checked by the shapely verifier of conftest.py (``geo.path_problems``); the
+The rules are checked by the suite's shapely verifier, tests/verify.py (``geo.path_problems``); the
 first tests here show that the verifier itself catches each kind of broken path.
 """
 
@@ -97,7 +97,7 @@ def test_verifier_catches_a_rectangle_overhang(geo):
 
 
 def _check_found_document(document: dict) -> None:
-    # contract section 2, "Path JSON"
+    # docs/files.md, "Path JSON"
     for key in ("status", "reason", "length_m", "reverse_m", "gear_changes", "poses", "stats"):
         assert key in document, key
     assert document["status"] == "found"
@@ -115,7 +115,7 @@ def _check_found_document(document: dict) -> None:
     assert json.loads(json.dumps(document, allow_nan=False)) == document
 
 
-def test_found_document_has_the_contract_keys_and_types(bay_plan):
+def test_found_document_has_the_documented_keys_and_types(bay_plan):
     _, path = bay_plan
     document = path.to_document()
     _check_found_document(document)
@@ -129,7 +129,7 @@ def test_found_document_of_a_turn_in_place_path_is_plain_json(geo):
     _check_found_document(path.to_document())
 
 
-def test_no_path_document_has_the_contract_keys_and_types():
+def test_no_path_document_has_the_documented_keys_and_types():
     scenario = build_scenario("enclosed_goal")
     with pytest.raises(NoPath) as caught:
         Planner(EXAMPLE_VEHICLE).plan(scenario.grid, scenario.start, scenario.goal)
@@ -151,7 +151,7 @@ PATH_SCENARIOS = [name for name in SCENARIO_NAMES if name != "enclosed_goal"]
 
 
 @pytest.mark.parametrize("name", PATH_SCENARIOS)
-def test_scenario_paths_keep_every_contract_rule(name, geo):
+def test_scenario_paths_keep_every_path_rule(name, geo):
     scenario = build_scenario(name)
     assert scenario.expect_path
     path = Planner(EXAMPLE_VEHICLE).plan(scenario.grid, scenario.start, scenario.goal, allow_reverse=scenario.reverse)

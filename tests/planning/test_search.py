@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import math
 import threading
-import time
 
 import networkx as nx
 import numpy as np
@@ -21,7 +20,6 @@ from veer.planning import (
     dubins_length,
     reeds_shepp_length,
 )
-from veer.planning.primitives import build_primitive_table
 from veer.tools.scenarios import build_scenario
 
 RADIUS_M = EXAMPLE_VEHICLE.min_turn_radius_m
@@ -172,24 +170,64 @@ def test_dead_end_bay_needs_reverse(geo, bay):
     assert document["poses"][-1][3] == -1
 
 
-def test_dead_end_bay_forward_only(geo, bay):
-    # forward only the car cannot turn round inside a 3.2 m bay: either a longer forward path or no path
-    try:
-        path, _ = _plan_and_verify(geo, bay.grid, EXAMPLE_VEHICLE, bay.start, bay.goal, allow_reverse=False, deadline_s=1.0)
-    except NoPath as error:
-        assert error.reason in ("no_path_at_resolution", "deadline", "budget_exhausted")
-    else:
-        assert path.reverse_m == 0.0
-        reversing = Planner(EXAMPLE_VEHICLE).plan(bay.grid, bay.start, bay.goal)
-        assert path.length_m > reversing.length_m
+# Forward only, the example car cannot park nose-out in a dead-end bay: it enters heading into the
+# bay, and turning round inside needs a width of about 2 (r + radius) = 2 (3.46 + 1.0) = 8.9 m, but
+# the bay is 3.2 m wide (derived from the turning radius of docs/reference.md, "Vehicle").
+# An explicit lattice cell and a long time limit make the search run to exhaustion.
+FORWARD_ONLY_LATTICE = SearchSettings(allow_reverse=False, lattice_cell_m=0.5, max_time_s=120.0)
+
+
+@pytest.fixture(scope="module")
+def forward_only_bay(bay):
+    with pytest.raises(NoPath) as caught:
+        Planner(EXAMPLE_VEHICLE, FORWARD_ONLY_LATTICE).plan(bay.grid, bay.start, bay.goal)
+    return caught.value
+
+
+def test_dead_end_bay_forward_only_has_no_path(forward_only_bay):
+    # every pose reachable at both resolutions was tried: not a budget, deadline or enclosure answer
+    assert forward_only_bay.reason == "no_path_at_resolution"
+    assert forward_only_bay.stats["coarse_expansions"] > 0
+
+
+def _lattice_keys_with_room(grid, radius_m: float, lattice_m: float) -> int:
+    """Lattice cells of ``lattice_m`` that can hold a valid disc centre, padded by one cell all round.
+
+    A map cell can hold a valid centre only if its centre keeps r - cell/sqrt(2) from every blocked
+    cell centre (scipy EDT, outside of the map blocked); the padding covers any alignment of the
+    search lattice with the map.
+    """
+    cs = grid.cell_size_m
+    padded = np.zeros((grid.rows + 2, grid.cols + 2), dtype=bool)
+    padded[1:-1, 1:-1] = ~grid.blocked
+    # source: scipy.ndimage.distance_transform_edt (exact Euclidean distance to the nearest 0)
+    clearance_m = ndimage.distance_transform_edt(padded)[1:-1, 1:-1] * cs
+    rows, cols = np.nonzero(clearance_m >= radius_m - cs / math.sqrt(2.0))
+    per = lattice_m / cs
+    keys = np.zeros((int(grid.rows / per) + 3, int(grid.cols / per) + 3), dtype=bool)
+    keys[(rows / per).astype(int) + 1, (cols / per).astype(int) + 1] = True
+    # source: scipy.ndimage.binary_dilation (3 x 3: one lattice cell all round)
+    return int(ndimage.binary_dilation(keys, structure=np.ones((3, 3), bool)).sum())
+
+
+def test_visited_table_bounds_an_exhausted_search(bay, forward_only_bay):
+    """A visited table keyed by (lattice cell, heading bin) expands each key at most once, so a search
+    that runs out of poses stops after at most keys x heading bins expansions per resolution; a tree
+    search without one would grow like 3^depth and never exhaust.
+    # common practice (hybrid A* closed set)
+    """
+    keys = _lattice_keys_with_room(bay.grid, EXAMPLE_VEHICLE.radius_m, FORWARD_ONLY_LATTICE.lattice_cell_m)
+    bins = FORWARD_ONLY_LATTICE.heading_bins
+    coarse = forward_only_bay.stats["coarse_expansions"]
+    fine = forward_only_bay.stats["expansions"] - coarse  # the retry at twice the heading resolution
+    assert 0 < coarse <= keys * bins
+    assert 0 < fine <= keys * 2 * bins
 
 
 def test_enclosed_goal_is_proven_before_searching():
     scenario = build_scenario("enclosed_goal")
-    t0 = time.perf_counter()
     with pytest.raises(NoPath) as caught:
         Planner(EXAMPLE_VEHICLE).plan(scenario.grid, scenario.start, scenario.goal)
-    assert time.perf_counter() - t0 < 1.0
     assert caught.value.reason == "goal_enclosed"
     assert caught.value.stats["expansions"] == 0
     assert "plan_s" in caught.value.stats
@@ -256,11 +294,12 @@ def test_cancel_already_set(bay):
 
 
 def test_tiny_deadline(bay):
-    t0 = time.perf_counter()
     with pytest.raises(NoPath) as caught:
         Planner(EXAMPLE_VEHICLE).plan(bay.grid, bay.start, bay.goal, deadline_s=1e-4)
     assert caught.value.reason == "deadline"
-    assert time.perf_counter() - t0 < 2.0
+    # it stopped early: fewer expansions than the complete search needs
+    complete = Planner(EXAMPLE_VEHICLE).plan(bay.grid, bay.start, bay.goal)
+    assert caught.value.stats["expansions"] < complete.stats["expansions"]
 
 
 # ------------------------------------------------------------------ check_path
@@ -316,8 +355,7 @@ def test_rectangle_vehicle_through_a_gap_the_circles_close(geo):
     straight = np.column_stack((xs, np.full_like(xs, 7.0), np.zeros_like(xs)))
     # source: shapely: the straight drive through the door is collision-free for the rectangle
     assert geo.first_exact_collision(geo.Obstacles(grid), RECT, straight) is None
-    checker = Planner(RECT).prepare(grid).checker
-    assert checker.poses_clear(straight[:, 0], straight[:, 1], straight[:, 2]).all()
+    assert Planner(RECT).check_path(grid, np.column_stack((straight, np.ones(len(xs))))) is None
     path, _ = _plan_and_verify(geo, grid, RECT, start, goal)
     assert path.poses[:, 1].min() > 5.9 and path.poses[:, 1].max() < 8.1
 
@@ -337,62 +375,3 @@ def test_turn_in_place_vehicle_in_a_tight_room(geo):
     start, goal = (4.5, 5.0, 0.0), (5.5, 5.0, math.pi)
     path, document = _plan_and_verify(geo, grid, SPINNER, start, goal)
     assert geo.turns_on_spot(document, math.radians(90.0))
-
-
-# ------------------------------------------------------------------ search size
-
-
-def _lattice_key(x_m, y_m, k, cell_m):
-    return (math.floor(x_m / cell_m), math.floor(y_m / cell_m), int(k))
-
-
-def test_visited_set_keeps_search_size_polynomial():
-    """Three successors per pose: a tree holds (3^(d+1) - 1) / 2 ~ 1.5 * 3^d poses to depth d,
-    a visited table only about as many as the lattice cells reached (area ~ d^2) times headings.
-    # common practice (search-size rule of thumb)
-    """
-    settings = SearchSettings(steer_levels=1, allow_reverse=False)
-    table = build_primitive_table(
-        EXAMPLE_VEHICLE, settings, 0.0, cell_size_m=0.1, sample_step_m=0.05, circle_offsets_m=np.zeros(1)
-    )
-    assert len(table.primitives) == 3
-    step_m = table.step_m
-    cell_m = step_m / 2.0  # the default visited-table cell: about half a step
-    bins = settings.heading_bins
-
-    # tree: every pose generated again, no visited table
-    x, y, k = np.zeros(1), np.zeros(1), np.zeros(1, dtype=int)
-    tree = [1]
-    for _ in range(9):
-        x = (x[:, None] + table.end_dx_m[k]).ravel()
-        y = (y[:, None] + table.end_dy_m[k]).ravel()
-        k = table.end_heading_index[k].ravel()
-        tree.append(tree[-1] + len(x))
-    for d, count in enumerate(tree):
-        assert count == (3 ** (d + 1) - 1) // 2
-        assert count == pytest.approx(1.5 * 3**d, rel=0.5 / 3**d + 1e-12)
-
-    # visited table: keep the first pose that reaches each lattice key
-    seen = {_lattice_key(0.0, 0.0, 0, cell_m)}
-    frontier = [(0.0, 0.0, 0)]
-    counts = [1]
-    for _ in range(22):
-        reached = []
-        for px, py, pk in frontier:
-            for p in range(3):
-                q = (px + table.end_dx_m[pk, p], py + table.end_dy_m[pk, p], int(table.end_heading_index[pk, p]))
-                key = _lattice_key(*q, cell_m)
-                if key not in seen:
-                    seen.add(key)
-                    reached.append(q)
-        frontier = reached
-        counts.append(len(seen))
-    ratios = [b / a for a, b in zip(counts, counts[1:])]
-    assert all(r < 3.0 for r in ratios[1:])  # (the first level adds the root's 3 successors)
-    assert max(ratios[10:]) < 1.6  # growth slows far below 3 per level
-    assert ratios[-1] < ratios[10] < ratios[3]
-    for d, count in enumerate(counts):
-        # never more keys than lattice cells within reach of d steps, times the headings
-        cells_in_reach = math.pi * (d * step_m / cell_m + 2.0) ** 2
-        assert count <= cells_in_reach * min(bins, 2 * d + 1)
-    assert counts[9] < tree[9] / 20

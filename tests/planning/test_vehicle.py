@@ -7,6 +7,7 @@ import math
 import numpy as np
 import pytest
 import shapely
+from scipy.integrate import solve_ivp
 from shapely import affinity
 
 from veer.planning import EXAMPLE_VEHICLE, Vehicle, VehicleError, load_vehicle, vehicle_from_mapping
@@ -31,30 +32,48 @@ def test_min_turn_radius_is_wheelbase_over_tan_steer(wheelbase_m, max_steer_deg,
     assert vehicle.max_curvature_per_m == pytest.approx(1.0 / expected_m, rel=1e-12)
 
 
-def _kerb_to_kerb_m(vehicle: Vehicle, track_m: float) -> float:
-    # outer front wheel circle: D ~= 2 sqrt((rho_min + t/2)^2 + L^2)
-    # source: METHODS.md section 4 "Spec-sheet conversion" (derived from LaValle 13.1.2.1)
-    return 2.0 * math.hypot(vehicle.min_turn_radius_m + track_m / 2.0, vehicle.wheelbase_m)
+def _kerb_to_kerb_m(wheelbase_m: float, max_steer_deg: float, track_m: float) -> float:
+    """Diameter of the circle the outer front wheel draws on full lock, by integrating the car.
+
+    # source: scipy.integrate.solve_ivp of the kinematic car x' = cos(theta), y' = sin(theta),
+    # theta' = tan(delta) / L (LaValle, Planning Algorithms, 2006, section 13.1.2.1), one full turn
+    """
+    curvature = math.tan(math.radians(max_steer_deg)) / wheelbase_m
+    turn = solve_ivp(
+        lambda _s, q: [math.cos(q[2]), math.sin(q[2]), curvature],
+        (0.0, 2.0 * math.pi / curvature), [0.0, 0.0, 0.0], rtol=1e-10, atol=1e-12, dense_output=True,
+    )
+    x, y, heading = turn.sol(np.linspace(0.0, 2.0 * math.pi / curvature, 720, endpoint=False))
+    # turning left, the outer front wheel is the right one: L ahead of the rear axle, t/2 to the right
+    wheel_x = x + wheelbase_m * np.cos(heading) + track_m / 2.0 * np.sin(heading)
+    wheel_y = y + wheelbase_m * np.sin(heading) - track_m / 2.0 * np.cos(heading)
+    return float(2.0 * np.hypot(wheel_x - wheel_x.mean(), wheel_y - wheel_y.mean()).mean())
 
 
-def test_spec_sheet_example_from_methods():
-    # L = 2.8 m, 35 deg, track 1.55 m -> rho_min = 4.00 m, kerb-to-kerb ~= 11.07 m
-    # source: METHODS.md section 4 worked example
+def test_spec_sheet_example():
+    # L = 2.8 m, 35 deg, track 1.55 m -> r = 4.00 m, kerb-to-kerb ~= 11.07 m
+    # source: docs/reference.md, "Vehicle" worked example (derived from LaValle 2006, 13.1.2.1)
     vehicle = Vehicle(wheelbase_m=2.8, max_steer_deg=35.0, radius_m=1.0)
     assert vehicle.min_turn_radius_m == pytest.approx(4.00, abs=0.005)
-    assert _kerb_to_kerb_m(vehicle, 1.55) == pytest.approx(11.07, abs=0.005)
+    kerb_m = _kerb_to_kerb_m(2.8, 35.0, 1.55)
+    assert kerb_m == pytest.approx(11.07, abs=0.005)
+    # the spec-sheet conversion D = 2 sqrt((r + t/2)^2 + L^2) with the code's r agrees with the integration
+    assert 2.0 * math.hypot(vehicle.min_turn_radius_m + 1.55 / 2.0, 2.8) == pytest.approx(kerb_m, rel=1e-6)
 
 
 @pytest.mark.parametrize(("wheelbase_m", "max_steer_deg"), [(2.6, 36.0), (2.7, 35.0), (2.85, 37.0)])
 def test_passenger_car_turning_circle_is_10_to_12_m(wheelbase_m, max_steer_deg):
     # passenger cars turn in about 10-12 m kerb to kerb
-    # common practice (METHODS.md section 4: [WIKI-TC] 11-12 m mid-size, [TLAB] 10.4-10.7 m)
+    # common practice (manufacturers' spec sheets; docs/reference.md, "Vehicle")
     vehicle = Vehicle(wheelbase_m=wheelbase_m, max_steer_deg=max_steer_deg, radius_m=1.0)
-    assert 10.0 <= _kerb_to_kerb_m(vehicle, 1.55) <= 12.0
+    track_m = 1.55
+    kerb_m = 2.0 * math.hypot(vehicle.min_turn_radius_m + track_m / 2.0, wheelbase_m)
+    assert kerb_m == pytest.approx(_kerb_to_kerb_m(wheelbase_m, max_steer_deg, track_m), rel=1e-6)
+    assert 10.0 <= kerb_m <= 12.0
 
 
-def test_example_vehicle_matches_contract():
-    # contract section 2: wheelbase 2.0 m, 30 deg, disc radius 1.0 m
+def test_example_vehicle_matches_the_docs():
+    # docs/files.md, "Vehicle file": wheelbase 2.0 m, 30 deg, disc radius 1.0 m
     assert (EXAMPLE_VEHICLE.wheelbase_m, EXAMPLE_VEHICLE.max_steer_deg, EXAMPLE_VEHICLE.radius_m) == (2.0, 30.0, 1.0)
     assert not EXAMPLE_VEHICLE.has_rectangle
 
@@ -67,18 +86,22 @@ def test_turn_in_place_has_zero_radius():
 
 # ------------------------------------------------------------------ covering circles
 
-# source: METHODS.md section 3 table, L = 4.8 m, W = 1.9 m, r_n = 1/2 sqrt((L/n)^2 + W^2)
-# (Ziegler & Stiller, IEEE IV 2010, covering circles; geometry derived)
-METHODS_RADII_M = {1: 2.581, 2: 1.531, 3: 1.242, 4: 1.124, 5: 1.064}
-METHODS_BULGE_M = {1: 1.631, 2: 0.581, 3: 0.292, 4: 0.174, 5: 0.114}
+# source: docs/reference.md, "Collision checking": L = 4.8 m, W = 1.9 m, n = 1..5 discs centred at
+# s_i = -L/2 + (2i - 1) L / (2n) (Ziegler & Stiller, IEEE IV 2010, covering circles; radii derived)
+TABLE_LENGTH_M, TABLE_WIDTH_M = 4.8, 1.9
+TABLE_RADII_M = {1: 2.581, 2: 1.531, 3: 1.242, 4: 1.124, 5: 1.064}
 
 
-@pytest.mark.parametrize("n", sorted(METHODS_RADII_M))
-def test_covering_radius_formula_matches_methods_table(n):
-    length_m, width_m = 4.8, 1.9
-    radius_m = 0.5 * math.hypot(length_m / n, width_m)
-    assert radius_m == pytest.approx(METHODS_RADII_M[n], abs=5e-4)
-    assert radius_m - width_m / 2 == pytest.approx(METHODS_BULGE_M[n], abs=5e-4)
+@pytest.mark.parametrize("n", sorted(TABLE_RADII_M))
+def test_covering_radius_table_is_the_smallest_cover(n):
+    # source: shapely (GEOS) difference / area: n discs of the table's radius cover the rectangle,
+    # discs 2 mm smaller leave its corners out
+    half = TABLE_LENGTH_M / 2
+    centres = -half + (2 * np.arange(1, n + 1) - 1) * TABLE_LENGTH_M / (2 * n)
+    body = shapely.box(-half, -TABLE_WIDTH_M / 2, half, TABLE_WIDTH_M / 2)
+    radius_m = TABLE_RADII_M[n] + 5e-4  # the table rounds to the millimetre
+    assert body.difference(_circle_union(centres, radius_m)).area < 1e-6 * body.area
+    assert body.difference(_circle_union(centres, TABLE_RADII_M[n] - 2e-3)).area > 1e-7
 
 
 def _circle_union(centres_x_m, radius_m, shrink=1.0):
@@ -97,7 +120,7 @@ def test_covering_circles_cover_the_rectangle(length_m, width_m, rear_overhang_m
     )
     centres_m, radius_m = vehicle.covering_circles()
     n = len(centres_m)
-    # the code's radius is the METHODS formula for the n it chose
+    # the code's radius is the formula of docs/reference.md for the n it chose
     assert radius_m == pytest.approx(0.5 * math.hypot(length_m / n, width_m), rel=1e-12)
     # centres at s_i = -L/2 + (2i - 1) L / (2n), shifted into the rear-axle frame
     overhang = rear_overhang_m if rear_overhang_m is not None else (length_m - 2.0) / 2
@@ -111,12 +134,12 @@ def test_covering_circles_cover_the_rectangle(length_m, width_m, rear_overhang_m
     assert body.difference(_circle_union(centres_m, radius_m, shrink=0.98)).area > 1e-4
 
 
-def test_covering_circles_of_methods_example_pick_three():
-    # bulge r_n - W/2 <= W/5 = 0.38 m first holds at n = 3 (METHODS table: 0.292 m)
+def test_covering_circles_of_the_table_example_pick_three():
+    # bulge r_n - W/2 <= W/5 = 0.38 m first holds at n = 3 (table of docs/reference.md: 0.292 m)
     vehicle = Vehicle(wheelbase_m=2.9, max_steer_deg=35.0, radius_m=1.0, length_m=4.8, width_m=1.9, rear_overhang_m=1.0)
     centres_m, radius_m = vehicle.covering_circles()
     assert len(centres_m) == 3
-    assert radius_m == pytest.approx(METHODS_RADII_M[3], abs=5e-4)
+    assert radius_m == pytest.approx(TABLE_RADII_M[3], abs=5e-4)
 
 
 def test_disc_vehicle_has_one_circle_at_the_axle():
@@ -196,8 +219,8 @@ def _write(tmp_path, text: str):
     return path
 
 
-def test_load_vehicle_reads_the_contract_example(tmp_path):
-    # contract section 2, vehicle TOML example
+def test_load_vehicle_reads_the_documented_example(tmp_path):
+    # docs/files.md, "Vehicle file": the example plus a 3.2 x 1.6 m rectangle, 0.6 m rear overhang
     path = _write(
         tmp_path,
         "wheelbase_m = 2.0\nmax_steer_deg = 30.0\nradius_m = 1.0\n"

@@ -2,8 +2,9 @@
 
 Most tests call :func:`veer.tools.cli.main` in-process; a few run the real entry point in
 a child interpreter (``python -m veer.tools.cli``) to see exactly what a shell sees.
-Found paths are checked against the outside contract (CONTRACT.md, "Path JSON") with
-an independent reader of the map image (OpenCV) and plain geometry, not the planner's code.
+Found paths are checked with the suite's verifier (tests/verify.py, shapely) against the
+rules of docs/files.md, "Path JSON", on a map read back by an independent decoder (OpenCV)
+with the sidecar's thresholds, never with veer's own map reader.
 """
 
 from __future__ import annotations
@@ -15,22 +16,23 @@ import sys
 import tomllib
 from importlib import metadata
 from pathlib import Path
+from types import SimpleNamespace
 
 import cv2
 import numpy as np
 import pytest
-from scipy.spatial import cKDTree
+import verify
 
 from veer.tools.cli import main
 from veer.tools.scenarios import build_scenario, write_scenario_map
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # source: PNG specification (ISO/IEC 15948), 5.2 PNG signature
-RADIUS_M = 1.0  # example vehicle (CONTRACT.md section 2): disc of 1.0 m
-MIN_TURN_RADIUS_M = 2.0 / math.tan(math.radians(30.0))  # contract: wheelbase / tan(max steer)
-GOAL_TOLERANCE_M = 0.2  # contract: last pose within 0.2 m and 5 degrees of the goal
-GOAL_TOLERANCE_RAD = math.radians(5.0)
-MAX_POSE_GAP_M = 0.25  # contract: consecutive poses at most 0.25 m apart
-ROUNDING_M = 1e-3  # the JSON rounds x, y to 0.1 mm
+# the example vehicle of docs/files.md, "Vehicle file": wheelbase 2.0 m, max steer 30 deg, disc of 1.0 m
+EXAMPLE = SimpleNamespace(wheelbase_m=2.0, max_steer_deg=30.0, radius_m=1.0, length_m=None, turns_in_place=False)
+RADIUS_M = EXAMPLE.radius_m
+# `veer plan` writes x, y to 0.1 mm and headings to 1e-5 rad: allow twice the rounding
+JSON_POSITION_TOL_M = 1e-4
+JSON_HEADING_TOL_RAD = 1e-5
 
 # Scenario poses as typed on a command line (metres, metres, degrees).
 PARKING_START = ["3.3", "11.3", "0"]
@@ -55,7 +57,7 @@ def _run(capsys, *argv: str) -> tuple[int, str, str]:
 def _pgm_p5(rows: int, cols: int, shades: np.ndarray | int) -> bytes:
     """A binary greymap: magic P5, whitespace, width, height, maxval, one whitespace, raster.
 
-    # source: Netpbm PGM specification (https://netpbm.sourceforge.net/doc/pgm.html)
+    # source: Netpbm PGM specification (pgm(5))
     """
     raster = np.broadcast_to(np.asarray(shades, dtype=np.uint8), (rows, cols))
     return f"P5\n{cols} {rows}\n255\n".encode("ascii") + raster.tobytes()
@@ -72,78 +74,30 @@ def _pgm_p2(rows: int, cols: int, shade: int) -> bytes:
     return ("\n".join(lines) + "\n").encode("ascii")
 
 
-def _blocked_squares(image_path: Path, cell_size_m: float | None = None):
-    """Centres (N, 2) of the cells that block, read with OpenCV and the sidecar's thresholds."""
+def _obstacles_of(image_path: Path, cell_size_m: float | None = None) -> verify.Obstacles:
+    """The blocked squares of a map file, read with OpenCV and the sidecar's thresholds."""
     # source: OpenCV imread (an independent PGM reader)
     shades = cv2.imread(str(image_path), cv2.IMREAD_UNCHANGED)
     sidecar = tomllib.loads(image_path.with_suffix(".toml").read_text())
-    cell_m = cell_size_m or sidecar["cell_size_m"]
-    # contract: above free_above (default 200) is free; everything else blocks, unknown
-    # included, as unknown_is defaults to "blocked"
+    # docs/files.md, "Map sidecar": above free_above (default 200) is free; everything else
+    # blocks, unknown included, as unknown_is defaults to "blocked"
     assert sidecar.get("unknown_is", "blocked") == "blocked"
-    rows, cols = np.nonzero(shades <= sidecar.get("free_above", 200))
-    ox, oy = sidecar.get("origin_m", (0.0, 0.0))
-    height = shades.shape[0]
-    centres = np.column_stack((ox + (cols + 0.5) * cell_m, oy + (height - rows - 0.5) * cell_m))
-    extent = (ox, oy, ox + shades.shape[1] * cell_m, oy + height * cell_m)
-    return centres, cell_m, extent
+    blocked = shades <= sidecar.get("free_above", 200)
+    return verify.Obstacles.from_mask(blocked, cell_size_m or sidecar["cell_size_m"], sidecar.get("origin_m", (0.0, 0.0)))
+
+
+def _pose(typed) -> tuple[float, float, float]:
+    """A pose typed on the command line (degrees) in radians."""
+    return float(typed[0]), float(typed[1]), math.radians(float(typed[2]))
 
 
 def _check_path_document(doc: dict, image_path: Path, start_deg, goal_deg, cell_size_m=None) -> np.ndarray:
-    """Assert the contract's path JSON rules for a found path; return the poses (N, 4)."""
+    """Assert the path JSON rules of docs/files.md for a found path; return the poses (N, 4)."""
     assert doc["status"] == "found" and doc["reason"] is None
-    poses = np.array(doc["poses"], dtype=float)
-    assert poses.ndim == 2 and poses.shape[1] == 4 and len(poses) >= 2
-    assert set(np.unique(poses[:, 3])) <= {-1.0, 1.0}
-    sx, sy, sh = float(start_deg[0]), float(start_deg[1]), math.radians(float(start_deg[2]))
-    gx, gy, gh = float(goal_deg[0]), float(goal_deg[1]), math.radians(float(goal_deg[2]))
-
-    def wrap(a):
-        return (np.asarray(a) + math.pi) % (2 * math.pi) - math.pi
-
-    # first pose is the start; last within the goal tolerance
-    assert math.hypot(poses[0, 0] - sx, poses[0, 1] - sy) <= ROUNDING_M
-    assert abs(wrap(poses[0, 2] - sh)) <= 1e-4
-    assert math.hypot(poses[-1, 0] - gx, poses[-1, 1] - gy) <= GOAL_TOLERANCE_M + ROUNDING_M
-    assert abs(wrap(poses[-1, 2] - gh)) <= GOAL_TOLERANCE_RAD + 1e-4
-
-    step = np.hypot(np.diff(poses[:, 0]), np.diff(poses[:, 1]))
-    assert step.max() <= MAX_POSE_GAP_M + ROUNDING_M
-    gear = poses[1:, 3]
-    # gear = direction of travel from the previous pose: sign of the step along the heading
-    # common practice (projection of the displacement on the mean heading of the two poses)
-    mid = poses[:-1, 2] + wrap(np.diff(poses[:, 2])) / 2
-    along = np.diff(poses[:, 0]) * np.cos(mid) + np.diff(poses[:, 1]) * np.sin(mid)
-    moving = step > 0.02
-    np.testing.assert_array_equal(np.sign(along[moving]), gear[moving])
-    assert poses[0, 3] == poses[1, 3]  # the first pose carries the gear of the first step
-    assert doc["length_m"] == pytest.approx(step.sum(), abs=0.01)
-    assert doc["reverse_m"] == pytest.approx(step[gear < 0].sum(), abs=0.01)
-    moving_gears = gear[step > 1e-9]
-    assert doc["gear_changes"] == int(np.count_nonzero(moving_gears[1:] != moving_gears[:-1]))
-
-    # curvature never exceeds 1 / min turn radius (heading change per metre, chord over-reads
-    # an arc of 0.25 m on 3.46 m by 2e-4 relative)
-    turn = np.abs(wrap(np.diff(poses[:, 2])))
-    big = step > 0.02
-    assert np.all(turn[big] <= step[big] / MIN_TURN_RADIUS_M * 1.01 + 2e-5)
-
-    # the disc is clear at every pose and every 2 cm between poses: no blocked square
-    # within RADIUS_M, and the disc stays on the image (everything outside is blocked)
-    t = np.linspace(0.0, 1.0, 14)[:-1]
-    xs = (poses[:-1, 0, None] + np.diff(poses[:, 0])[:, None] * t).ravel()
-    ys = (poses[:-1, 1, None] + np.diff(poses[:, 1])[:, None] * t).ravel()
-    points = np.column_stack((np.append(xs, poses[-1, 0]), np.append(ys, poses[-1, 1])))
-    centres, cell_m, (x0, y0, x1, y1) = _blocked_squares(image_path, cell_size_m)
-    assert np.all(points[:, 0] - RADIUS_M >= x0 - 1e-9) and np.all(points[:, 0] + RADIUS_M <= x1 + 1e-9)
-    assert np.all(points[:, 1] - RADIUS_M >= y0 - 1e-9) and np.all(points[:, 1] + RADIUS_M <= y1 + 1e-9)
-    # source: scipy.spatial.cKDTree (neighbour query); point-to-square distance is common practice
-    tree = cKDTree(centres)
-    for point, near in zip(points, tree.query_ball_point(points, RADIUS_M + cell_m * math.sqrt(0.5))):
-        if near:
-            d = np.abs(centres[near] - point) - cell_m / 2
-            assert np.hypot(*np.maximum(d, 0.0).T).min() >= RADIUS_M - 1e-9, f"disc at {point} touches a blocked cell"
-    return poses
+    return verify.assert_valid_path(
+        _obstacles_of(image_path, cell_size_m), EXAMPLE, doc, _pose(start_deg), _pose(goal_deg),
+        position_tol_m=JSON_POSITION_TOL_M, heading_tol_rad=JSON_HEADING_TOL_RAD,
+    )
 
 
 # ------------------------------------------------------------------------------ subcommands
@@ -172,19 +126,49 @@ def test_help_in_a_child_process():
     assert done.stderr == ""
 
 
-@pytest.mark.parametrize("argv", [["node"], ["node", "--vehicle", "v.toml"], ["replay", "x"]])
-def test_node_and_replay_say_they_are_not_built(capsys, argv):
+@pytest.mark.parametrize("argv", [["replay", "x"], ["replay", "x", "--out", "report"]])
+def test_replay_says_it_is_not_built(capsys, argv):
     code, out, err = _run(capsys, *argv)
-    assert code != 0
+    assert code == 2
     assert out == ""
     assert len(err.splitlines()) == 1
-    assert f"veer {argv[0]}" in err and "not built yet" in err
+    assert "veer replay" in err and "not built yet" in err
+
+
+def test_every_registered_subcommand_has_the_interface():
+    # each subcommand module: add_arguments(parser), run(args) -> int, a docstring for the help
+    import importlib
+
+    from veer.tools import cli
+
+    assert set(cli.SUBCOMMANDS) >= {"plan", "demo"}
+    for name in cli.SUBCOMMANDS:
+        module = importlib.import_module(f"veer.tools.{name}")
+        assert callable(module.add_arguments) and callable(module.run)
+        assert module.__doc__ and module.__doc__.strip().splitlines()[0]
+
+
+def test_subcommand_help_is_the_module_docstring(capsys):
+    from veer.tools import plan
+
+    with pytest.raises(SystemExit) as exit_info:
+        main(["plan", "--help"])
+    assert exit_info.value.code == 0
+    assert plan.__doc__.strip().splitlines()[0] in capsys.readouterr().out
+
+
+def test_cli_and_subcommands_do_not_import_each_other(imports_of):
+    # the exit codes and UsageError live in veer.tools.errors; cli imports the subcommands by name
+    tools = Path(__file__).resolve().parents[2] / "tools"
+    for name in ("plan", "demo", "errors"):
+        modules = {module for module, _ in imports_of(tools / f"{name}.py")}
+        assert "veer.tools.cli" not in modules and "cli" not in modules, name
 
 
 # ------------------------------------------------------------------------------ plan: found
 
 
-def test_plan_writes_a_contract_path_and_a_png(capsys, maps_dir, tmp_path):
+def test_plan_writes_a_valid_path_and_a_png(capsys, maps_dir, tmp_path):
     image = maps_dir / "parking_bay.pgm"
     out, picture = tmp_path / "path.json", tmp_path / "path.png"
     code, stdout, err = _run(
@@ -230,7 +214,7 @@ def test_forward_only_open_yard_has_no_reverse_poses(capsys, maps_dir, tmp_path)
 def test_cell_size_overrides_the_sidecar(capsys, tmp_path):
     # 100 x 50 cells: 10 x 5 m at the sidecar's 0.1 m, 20 x 10 m at 0.2 m
     image = tmp_path / "free.pgm"
-    image.write_bytes(_pgm_p2(50, 100, 254))
+    image.write_bytes(_pgm_p2(50, 100, 255))
     image.with_suffix(".toml").write_text("cell_size_m = 0.1\n")
     start, goal = ["3", "2.5", "0"], ["16", "2.5", "0"]  # goal beyond x = 10 m, inside x = 20 m
     code, _, err = _run(capsys, "plan", str(image), "--start", *start, "--goal", *goal)
@@ -260,6 +244,17 @@ def test_enclosed_goal_is_no_path_with_exit_1(capsys, maps_dir, tmp_path):
     assert doc["poses"] == []
 
 
+def test_the_log_line_of_a_no_path_names_the_reason(capsys, caplog, maps_dir, tmp_path):
+    import logging
+
+    caplog.set_level(logging.INFO, logger="veer.tools")
+    code, _, _ = _run(capsys, "plan", str(maps_dir / "enclosed_goal.pgm"), "--start", "4", "4", "0",
+                      "--goal", "20", "20", "0", "--out", str(tmp_path / "e.json"))
+    assert code == 1
+    (line,) = [r.getMessage() for r in caplog.records if r.name == "veer.tools" and r.getMessage().startswith("plan ")]
+    assert "status=no_path" in line and "reason=goal_enclosed" in line
+
+
 # ------------------------------------------------------------------------------ plan: bad input
 
 
@@ -270,10 +265,10 @@ def _bad_inputs(maps: Path, tmp: Path) -> dict[str, tuple[list[str], list[str]]]
     garbage = tmp / "garbage.pgm"
     garbage.write_bytes(b"this is not an image\n" * 4)
     truncated = tmp / "short.pgm"
-    truncated.write_bytes(_pgm_p5(50, 100, 254)[:200])  # header promises 5000 pixels
+    truncated.write_bytes(_pgm_p5(50, 100, 255)[:200])  # header promises 5000 pixels
     truncated.with_suffix(".toml").write_text("cell_size_m = 0.1\n")
     bare = tmp / "bare.pgm"
-    bare.write_bytes(_pgm_p5(50, 100, 254))  # no bare.toml beside it
+    bare.write_bytes(_pgm_p5(50, 100, 255))  # no bare.toml beside it
     vehicles = {
         "syntax.toml": "wheelbase_m = 2.0\nmax_steer_deg = \nradius_m = 1.0\n",
         "unknown.toml": "wheelbase_m = 2.0\nmax_steer_deg = 30.0\nradius_m = 1.0\ncolour = \"red\"\n",

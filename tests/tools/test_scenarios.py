@@ -299,7 +299,8 @@ def test_write_scenario_map_round_trip(tmp_path, built):
     assert image_path == tmp_path / "parking_bay.pgm"
     width, height, maxval, pixels = _read_pgm_p5(image_path.read_bytes())
     assert (height, width, maxval) == (scenario.grid.rows, scenario.grid.cols, 255)
-    expected = np.where(scenario.grid.classes == FREE, 254, np.where(scenario.grid.classes == OCCUPIED, 0, 128))
+    # docs/files.md, "Built-in scenario maps": free 255, occupied 0, unknown 128
+    expected = np.where(scenario.grid.classes == FREE, 255, np.where(scenario.grid.classes == OCCUPIED, 0, 128))
     np.testing.assert_array_equal(pixels, expected)
     sidecar = tomllib.loads((tmp_path / "parking_bay.toml").read_text())
     assert sidecar == {
@@ -316,7 +317,7 @@ def test_write_scenario_map_round_trip(tmp_path, built):
 
 def test_write_scenario_map_with_unknown_cells(tmp_path):
     # Unknown cells must be written with a shade between occupied_below and free_above, so that
-    # the sidecar's own thresholds read them back as unknown (CONTRACT.md section 2).
+    # the sidecar's own thresholds read them back as unknown (docs/files.md, "Map sidecar").
     from veer.maps import UNKNOWN, OccupancyGrid
 
     classes = np.zeros((4, 6), np.uint8)
