@@ -42,6 +42,7 @@ class GoalCurves:
         self.reverse = reverse
         self.candidates = candidates
         self.checker = context.checker
+        self._pricers: dict = {}  # MotionEnd before the curve -> word pricer (few distinct ones)
 
     # ------------------------------------------------------------------ pricing
     def clearance_cost(self, samples: np.ndarray) -> float:
@@ -61,34 +62,48 @@ class GoalCurves:
         if cost > limit:
             return None
         checker = self.checker
-        samples = path.sample(start, checker.sample_step_m)
-        # most curves that fail do so early and widely: every fourth sample first
-        sparse = samples[1::4]
-        if not checker.poses_clear(sparse[:, 0], sparse[:, 1], sparse[:, 2]).all():
+        # most curves that fail do so early and widely: a pass at four times the step first
+        sparse = path.sample(start, 4.0 * checker.sample_step_m)
+        if not checker.poses_clear(sparse[1:, 0], sparse[1:, 1], sparse[1:, 2]).all():
             return None
+        samples = path.sample(start, checker.sample_step_m)
         if not checker.poses_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]).all():
             return None
         return cost + self.clearance_cost(samples), samples
 
     # ------------------------------------------------------------------ to the goal
-    def from_pose(self, x_m: float, y_m: float, heading_rad: float, before: MotionEnd | None = None):
-        """The cheapest collision-free piece from the pose to the goal: (piece, cost), or None."""
-        return self.between((x_m, y_m, heading_rad), self.goal, before)
+    def from_pose(self, x_m: float, y_m: float, heading_rad: float, before: MotionEnd | None = None,
+                  more_within: float = math.inf):
+        """The cheapest collision-free piece from the pose to the goal: (piece, cost), or None.
 
-    def between(self, start, end, before: MotionEnd | None = None, limit: float = math.inf, *, forward_only: bool = False):
+        The cheapest curve is always checked; the next ones only while they cost at most
+        ``more_within`` (the search passes what would still end it at once).
+        """
+        return self.between((x_m, y_m, heading_rad), self.goal, before, more_within=more_within)
+
+    def between(self, start, end, before: MotionEnd | None = None, limit: float = math.inf, *,
+                forward_only: bool = False, more_within: float = math.inf):
         """The cheapest collision-free piece from ``start`` to ``end`` within ``limit``: (piece, cost), or None.
 
-        Checks at most ``candidates`` curves, cheapest first (turn-in-place bases: the
-        rotate-drive-rotate moves).
+        Checks at most ``candidates`` curves: the cheapest, then the shortest word (when it
+        is not among the cheapest), then the next cheapest; the second and later only
+        while they cost at most ``more_within`` (turn-in-place bases: the
+        rotate-drive-rotate moves). Poses are finite floats (the planner checked them).
         """
         reverse = self.reverse and not forward_only
         if self.vehicle.turns_in_place:
             return self._spin_drive_spin(start, end, reverse, limit)
         radius = self.vehicle.min_turn_radius_m
-        price = self.costs.word_pricer(radius, before)
-        for cost, path in curves.cheapest_curves(start, end, radius, price, self.candidates, reverse=reverse):
-            if cost > limit:
+        price = self._pricers.get(before)
+        if price is None:
+            price = self._pricers[before] = self.costs.word_pricer(radius, before)
+        cheapest = curves.cheapest_words(
+            start, end, radius, price, self.candidates, reverse=reverse, checked=False, with_shortest=True
+        )
+        for rank, (cost, word) in enumerate(cheapest):
+            if cost > limit or (rank and cost > more_within):
                 return None
+            path = word.path()
             found = self.curve_cost(path, start, before, limit)
             if found is not None and found[0] <= limit:
                 return ("curve", path), found[0]

@@ -62,6 +62,7 @@ __all__ = [
     "dubins_shortest_few",
     "reeds_shepp_lengths_unit",
     "cheapest_curves",
+    "cheapest_words",
     "all_curves",
 ]
 
@@ -128,11 +129,18 @@ def _check_radius(turn_radius_m) -> float:
         ) from None
 
 
-def _relative_unit(start, goal, turn_radius_m):
-    """Goal in the start's frame, lengths divided by the radius: (x, y, phi)."""
-    r = _check_radius(turn_radius_m)
-    x0, y0, th0 = pose_argument(start, "start")
-    x1, y1, th1 = pose_argument(goal, "goal")
+def _relative_unit(start, goal, turn_radius_m, *, checked: bool = True):
+    """Goal in the start's frame, lengths divided by the radius: (x, y, phi).
+
+    ``checked=False`` skips the argument checks, for callers that already hold finite
+    float poses and a positive radius (the search).
+    """
+    if checked:
+        r = _check_radius(turn_radius_m)
+        x0, y0, th0 = pose_argument(start, "start")
+        x1, y1, th1 = pose_argument(goal, "goal")
+    else:
+        r, (x0, y0, th0), (x1, y1, th1) = turn_radius_m, start, goal
     c, s = math.cos(th0), math.sin(th0)
     dx, dy = x1 - x0, y1 - y0
     return (c * dx + s * dy) / r, (-s * dx + c * dy) / r, wrap_angle(th1 - th0), r
@@ -445,8 +453,13 @@ def _variant(pattern, refl: bool, flip: bool, back: bool):
     return pattern[::-1] if back else pattern
 
 
-def _rs_candidates(x, y, phi):
-    """All Reeds-Shepp candidates: list of (unit length, ((kind, sign), ...), mags)."""
+def _rs_candidates(x, y, phi, variants=None):
+    """All Reeds-Shepp candidates: list of (unit length, ((kind, sign), ...), mags).
+
+    ``variants`` defaults to the Reeds-Shepp words; :func:`_priced_family` passes a set
+    with the cusp-free CCC words added.
+    """
+    variants = variants or _RS_VARIANTS
     out = []
     for flip in (False, True):  # timeflip: (x, y, phi) -> (-x, y, -phi), signs negate
         for refl in (False, True):  # reflect: (x, y, phi) -> (x, -y, -phi), L <-> R
@@ -460,7 +473,7 @@ def _rs_candidates(x, y, phi):
                 else:
                     bx, by = gx, gy
                 vec = _circle_vectors(bx, by, gphi)
-                for pat, solver in _RS_VARIANTS[(refl, flip, back)]:
+                for pat, solver in variants[(refl, flip, back)]:
                     for mags in solver(gphi, *vec):
                         if back:
                             mags = mags[::-1]
@@ -491,19 +504,25 @@ def _dubins_candidates(x, y, phi):
     return out
 
 
-def _priced_family(x, y, phi, reverse: bool):
-    """Words for choosing by cost: the Reeds-Shepp set plus the Dubins words driven all forward and all in reverse.
+# the Reeds-Shepp words plus the cusp-free CCC word, under the same reflections and
+# timeflips (so LRL and RLR driven all forward, and all in reverse)
+_PRICED_VARIANTS = {
+    key: words + ([(_variant(_pattern("L+R+L+"), key[0], key[1], False), _dubins_lrl)] if not key[2] else [])
+    for key, words in _RS_VARIANTS.items()
+}
 
-    The Reeds-Shepp set is sufficient for length only; once reversing and gear changes
-    cost extra, a cusp-free CCC word (Dubins, never shortest with reverse allowed) can be
-    the cheapest, so it joins the family, as does its timeflip, driven wholly in reverse.
+
+def _priced_family(x, y, phi, reverse: bool):
+    """Words for choosing by cost: the Reeds-Shepp set plus the cusp-free CCC words in either gear.
+
+    The Reeds-Shepp set is sufficient for length only: it holds every CSC word in one
+    gear, but a cusp-free CCC word is never shortest once reversing is allowed and so is
+    left out. Once reversing and gear changes cost extra, such a Dubins word can be the
+    cheapest, so it joins the family, as does its timeflip, driven wholly in reverse.
     """
     if not reverse:
         return _dubins_candidates(x, y, phi)
-    backward = [
-        (length, tuple((k, -g) for k, g in pat), mags) for length, pat, mags in _dubins_candidates(-x, y, -phi)
-    ]
-    return _rs_candidates(x, y, phi) + _dubins_candidates(x, y, phi) + backward
+    return _rs_candidates(x, y, phi, _PRICED_VARIANTS)
 
 
 def _cusps(pat, mags) -> int:
@@ -677,12 +696,45 @@ def dubins_shortest_few(start, goal, turn_radius_m, count: int = 3) -> list[Curv
     return _few_paths(_dubins_candidates(x, y, phi), r, False, count)
 
 
-def cheapest_curves(start, goal, turn_radius_m, price, count: int = 1, *, reverse: bool = True) -> list[tuple[float, CurvePath]]:
+class _LazyCurve:
+    """A priced word whose CurvePath is built on first use (most priced words are never sampled)."""
+
+    __slots__ = ("pattern", "mags", "radius", "signed", "_path")
+
+    def __init__(self, pattern, mags, radius, signed):
+        self.pattern, self.mags, self.radius, self.signed, self._path = pattern, mags, radius, signed, None
+
+    def path(self) -> CurvePath:
+        if self._path is None:
+            self._path = _to_path(self.pattern, self.mags, self.radius, self.signed)
+        return self._path
+
+
+def cheapest_curves(
+    start, goal, turn_radius_m, price, count: int = 1, *, reverse: bool = True, checked: bool = True
+) -> list[tuple[float, CurvePath]]:
+    """The ``count`` cheapest distinct curves from ``start`` to ``goal`` under ``price``, cheapest first.
+
+    See :func:`cheapest_words`, which this calls; this one builds every curve.
+    """
+    return [(cost, word.path()) for cost, word in cheapest_words(
+        start, goal, turn_radius_m, price, count, reverse=reverse, checked=checked)]
+
+
+def _signature(pat, mags) -> tuple:
+    """What makes two solved words the same curve: the moving segments with their gears and lengths."""
+    return tuple((k, g, round(m, 9)) for (k, g), m in zip(pat, mags) if m > _ZERO_LENGTH)
+
+
+def cheapest_words(
+    start, goal, turn_radius_m, price, count: int = 1, *, reverse: bool = True, checked: bool = True,
+    with_shortest: bool = False,
+) -> list:
     """The ``count`` cheapest distinct curves from ``start`` to ``goal`` under ``price``, cheapest first.
 
     Every word of the family is solved in closed form (with ``reverse``: the Reeds-Shepp
-    candidates and the Dubins words driven all forward or all in reverse; else the six
-    Dubins words) and priced with ``price(pattern, mags)``:
+    candidates and the cusp-free CCC words driven all forward or all in reverse; else
+    the six Dubins words) and priced with ``price(pattern, mags)``:
     ``pattern`` is the word as ``((kind, gear), ...)`` with kind L / S / R and gear +1 / -1,
     ``mags`` the unit-radius segment lengths (>= 0; a segment of length 0 is not driven).
     A planner's own cost model thus chooses the curve: the shortest is not always the
@@ -690,25 +742,43 @@ def cheapest_curves(start, goal, turn_radius_m, price, count: int = 1, *, revers
     "Improved analytic expansions in hybrid A-star path planning for non-holonomic
     robots", Applied Sciences 12:5999, 2022, on trying more than the shortest curve).
 
-    Returns ``[(price, CurvePath), ...]``; ties go to fewer cusps.
+    ``price`` must never be below the word's length in metres (every cost model here
+    charges at least the distance driven): words are priced shortest first and the rest
+    skipped once no longer word can be among the ``count`` cheapest. Returns
+    ``[(price, word), ...]``, ``word.path()`` building the CurvePath on demand (most
+    priced words are never sampled); among equal prices the shorter word comes first.
+    ``checked=False`` skips the argument checks (finite float poses, radius > 0 assumed).
+    ``with_shortest`` puts the shortest word second when it is not among the ``count``
+    cheapest: when the cheapest collides, the shortest sweeps the least ground and is the
+    likeliest to be clear (the last of the cheapest then drops out).
     """
-    x, y, phi, r = _relative_unit(start, goal, turn_radius_m)
+    x, y, phi, r = _relative_unit(start, goal, turn_radius_m, checked=checked)
     candidates = _priced_family(x, y, phi, reverse)
-    priced = sorted(
-        ((price(pat, mags), _cusps(pat, mags), i) for i, (_, pat, mags) in enumerate(candidates))
-    )
-    out: list[tuple[float, CurvePath]] = []
-    seen = set()
-    for cost, _, i in priced:
-        _, pat, mags = candidates[i]
-        signature = tuple((k, g, round(m, 9)) for (k, g), m in zip(pat, mags) if m > _ZERO_LENGTH)
-        if signature in seen:
-            continue
-        seen.add(signature)
-        out.append((cost, _to_path(pat, mags, r, signed_word=reverse)))
-        if len(out) == count:
+    by_length = sorted(range(len(candidates)), key=lambda j: candidates[j][0])
+    # price never falls below the length in metres, so once the next-shortest word is
+    # longer than the count-th cheapest price found, no later word can enter the answer
+    kept: list[tuple[float, int, tuple]] = []  # (price, candidate index, signature), cheapest first
+    for i in by_length:
+        unit_length, pat, mags = candidates[i]
+        if len(kept) == count and unit_length * r > kept[-1][0]:
             break
-    return out
+        cost = price(pat, mags)
+        if len(kept) == count and cost >= kept[-1][0]:
+            continue
+        signature = _signature(pat, mags)
+        if any(signature == other for _, _, other in kept):  # the same curve found by two words
+            continue
+        kept.append((cost, i, signature))
+        kept.sort(key=lambda item: item[0])
+        del kept[count:]
+    if with_shortest and count > 1 and by_length:
+        # the shortest word sweeps the least ground: second in line when it is not among the cheapest
+        i = by_length[0]
+        signature = _signature(candidates[i][1], candidates[i][2])
+        if all(signature != other for _, _, other in kept):
+            kept.insert(1, (price(candidates[i][1], candidates[i][2]), i, signature))
+            del kept[count:]
+    return [(cost, _LazyCurve(candidates[i][1], candidates[i][2], r, reverse)) for cost, i, _ in kept]
 
 
 def all_curves(start, goal, turn_radius_m, *, reverse: bool = True) -> list[CurvePath]:

@@ -30,7 +30,7 @@ from veer.maps import InflatedGrid, OccupancyGrid
 from veer.planning.angles import wrap_angle
 from veer.planning.assembly import assemble_path
 from veer.planning.context import GridCache, GridContext
-from veer.planning.errors import NoPath, PoseError
+from veer.planning.errors import NoPath, PlanningError, PoseError
 from veer.planning.inputs import pose_argument, poses_argument
 from veer.planning.kernel import run_search
 from veer.planning.path import PlannedPath
@@ -268,21 +268,30 @@ def _densify(poses: np.ndarray, step_m: float) -> tuple[np.ndarray, np.ndarray]:
     return np.vstack(out), np.concatenate(owner)
 
 
-_warm = set()
+_warm: set = set()
 
 
 def _warm_up(vehicle: Vehicle, settings: SearchSettings) -> None:
-    """Load once per process what the first plan would otherwise pay for inside ``plan_s``.
+    """Do once per process what the first plan would otherwise pay for inside ``plan_s``.
 
-    The turning table (from the disk cache, or built) and numpy's lazily imported
-    helpers that the 2-D field and the search touch on first use.
+    Loads the turning table (from the disk cache, or builds it) and runs one small plan
+    on an empty 3 x 3 m grid, so that numpy's and OpenCV's lazily loaded routines and the
+    search's first-use paths are ready (about 5 ms, once).
     """
-    key = (settings.use_turning_heuristic and not vehicle.turns_in_place, settings.allow_reverse)
+    key = (vehicle, settings.allow_reverse, settings.use_turning_heuristic)
     if key in _warm:
         return
+    _warm.add(key)  # before the plan below, whose planner would warm up again
     from veer.planning.heuristics import turning_table
 
-    if key[0]:
+    if settings.use_turning_heuristic and not vehicle.turns_in_place:
         turning_table("reeds_shepp" if settings.allow_reverse else "dubins", spread=2)
-    np.unique(np.array([1, 0, 1], dtype=np.intp))  # pulls in numpy's lazy submodules once
-    _warm.add(key)
+    span_m = 4.0 * vehicle.bounding_radius_m + 4.0
+    cell_m = span_m / 40.0
+    grid = OccupancyGrid(np.zeros((40, 40), np.uint8), cell_m, (0.0, 0.0))
+    middle = span_m / 2.0
+    quick = replace(settings, max_expansions=50, max_time_s=1.0, refine_on_exhaustion=False)
+    try:
+        Planner(vehicle, quick, cache_size=1).plan(grid, (middle - 0.5, middle, 0.0), (middle + 0.5, middle, 0.0))
+    except (NoPath, PlanningError):  # only the loading matters
+        pass

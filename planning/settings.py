@@ -101,7 +101,7 @@ class SearchSettings:
     max_time_s: float = 10.0
     goal_curve_every: int = 8
     goal_curve_near_m: float | None = None
-    goal_curve_candidates: int = 3
+    goal_curve_candidates: int = 2
     goal_curve_accept_ratio: float = 1.4
     goal_tolerance_m: float = 0.2
     goal_tolerance_deg: float = 5.0
