@@ -5,7 +5,7 @@ The one import a caller needs::
     from veer.planning import Planner, Vehicle, SearchSettings, NoPath
 
 :class:`Planner` turns a grid (``veer.maps``), a vehicle and two poses into a
-:class:`PlannedPath` or raises :class:`NoPath` with the contract's reason code; bad input
+:class:`PlannedPath` or raises :class:`NoPath` with a reason code (docs/files.md, "Path JSON"); bad input
 raises a :class:`PlanningError`. Nothing here knows about sockets or messages.
 """
 

@@ -4,26 +4,57 @@ The footprint is covered by circles on the vehicle's long axis (one circle, the 
 ``radius_m``, when no rectangle is given). Each circle centre is looked up in a mask of
 cells where a circle centred *anywhere* in the cell might touch a blocked square (see
 ``veer.maps.inflate``), so a pose whose circle cells are all clear is collision-free.
+Covering circles: Ziegler & Stiller, "Fast collision checking for intelligent vehicle
+motion planning", IEEE IV 2010.
+
 When the footprint is a rectangle and the circles are inconclusive, the rectangle is
-tested exactly against every nearby blocked square with the separating-axis theorem
-(Gottschalk, Lin & Manocha, "OBBTree", SIGGRAPH 1996), so no feasible pose is rejected
-for the circles' bulge alone. Covering circles: Ziegler & Stiller, IEEE IV 2010.
+tested exactly, so no feasible pose is rejected for the circles' bulge alone. The test
+has the two phases of collision detection (LaValle, *Planning Algorithms*, 2006,
+section 5.3.1): a broad phase that finds the obstacles near a batch of poses, and an
+exact narrow phase.
+
+- **Obstacles as boxes.** The blocked cells (with the map's outside, as a blocked
+  border) are merged once per grid into axis-aligned boxes whose union is exactly the
+  union of the blocked squares: each row's runs of blocked cells, then runs with the
+  same columns in consecutive rows joined (:func:`obstacle_boxes`). Walls and racks
+  become a handful of boxes instead of hundreds of squares.
+- **Broad phase.** The boxes are listed per tile of ``_TILE_CELLS`` cells (a uniform
+  grid, Ericson, *Real-Time Collision Detection*, 2005, section 7.1); a batch of poses
+  gathers the boxes of the tiles within the footprint's reach of its poses.
+- **Narrow phase.** Each (margin-grown) rectangle against each of those boxes with the
+  separating-axis theorem: two convex polygons are disjoint if and only if their
+  projections are disjoint on one of their edge normals, here the box's x and y and the
+  rectangle's two axes (Gottschalk, Lin & Manocha, "OBBTree", SIGGRAPH 1996; Ericson
+  2005, section 4.4.1). Touching counts as a collision. The answer is exact for every
+  pose; no lookup table stands between it and the geometry.
 
 Poses are checked at samples at most ``sample_step_m`` apart; the mask is inflated by a
-further half step (plus the chord sagitta of the tightest arc), so the footprint is also
+further half step (plus the chord sagitta of the tightest arc), and the rectangle grown
+by the distance its farthest corner moves in half a step, so the footprint is also
 clear at every point between two samples.
 """
 
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from veer.maps import OccupancyGrid, inflate
+from veer.planning.errors import VehicleError
 from veer.planning.vehicle import Vehicle
 
-__all__ = ["FootprintChecker"]
+__all__ = ["FootprintChecker", "ObstacleBoxes", "obstacle_boxes"]
+
+_min, _max = np.minimum.reduce, np.maximum.reduce
+
+
+def _as_1d(values) -> np.ndarray:
+    """``values`` as a 1-D float64 array (no copy when it already is one)."""
+    if type(values) is np.ndarray and values.ndim == 1 and values.dtype == np.float64:
+        return values
+    return np.atleast_1d(np.asarray(values, dtype=float))
 
 
 class FootprintChecker:
@@ -83,15 +114,34 @@ class FootprintChecker:
         self.inv_cell = 1.0 / cs
         self.left_x_m = grid.origin_m[0] - pad * cs
         self.top_y_m = grid.origin_m[1] + grid.rows * cs + pad * cs
-        self._raw_blocked = None  # padded raw grid, built on first exact check
-        self._raw_boundary = None  # its blocked squares that touch an open square
+        self._boxes: ObstacleBoxes | None = None  # blocked cells as boxes, built on first exact check
+        # the rectangle grown by the between-samples allowance, about its centre on the long axis
+        if vehicle.has_rectangle:
+            rear_m = -vehicle.rear_overhang_or_default_m - self._rect_grow_m
+            front_m = -vehicle.rear_overhang_or_default_m + vehicle.length_m + self._rect_grow_m
+            self._rect_mid_m = (rear_m + front_m) / 2.0
+            self._rect_half_len_m = (front_m - rear_m) / 2.0
+            self._rect_half_wid_m = vehicle.width_m / 2.0 + self._rect_grow_m
+            self._rect_reach_m = abs(self._rect_mid_m) + math.hypot(self._rect_half_len_m, self._rect_half_wid_m)
+            self._pose_box_tensor = _separating_axis_tensor(self._rect_mid_m, self._rect_half_len_m, self._rect_half_wid_m)
+        self._box_weights: dict[bytes, np.ndarray] = {}
+
+    @property
+    def rectangle_margin_m(self) -> float:
+        """How far the rectangle is grown on every side for the exact test (motion between samples)."""
+        return self._rect_grow_m
 
     # ------------------------------------------------------------------ lookups
     def flat_index(self, x_m, y_m) -> np.ndarray:
         """Index into ``blocked_flat`` of the cells holding world points (clipped to the border)."""
-        col = np.clip(((np.asarray(x_m) - self.left_x_m) * self.inv_cell).astype(np.intp), 0, self.padded_cols - 1)
-        row = np.clip(((self.top_y_m - np.asarray(y_m)) * self.inv_cell).astype(np.intp), 0, self.padded_rows - 1)
-        return row * self.padded_cols + col
+        col = np.asarray((np.asarray(x_m) - self.left_x_m) * self.inv_cell).astype(np.intp)
+        row = np.asarray((self.top_y_m - np.asarray(y_m)) * self.inv_cell).astype(np.intp)
+        # clip with two ufuncs in place (np.clip's wrapper costs more than the work here)
+        np.minimum(np.maximum(col, 0, out=col), self.padded_cols - 1, out=col)
+        np.minimum(np.maximum(row, 0, out=row), self.padded_rows - 1, out=row)
+        row *= self.padded_cols
+        row += col
+        return row[()]  # a scalar for scalar input, as before
 
     def circles_clear(self, x_m, y_m, heading_rad) -> np.ndarray:
         """True where every covering circle of the pose lies in a clear cell (conservative)."""
@@ -107,7 +157,7 @@ class FootprintChecker:
         clear = self.circles_clear(x_m, y_m, heading_rad)
         if self.vehicle.has_rectangle and not clear.all():
             doubtful = np.flatnonzero(~clear)
-            clear[doubtful] = self.rectangles_clear(x_m[doubtful], y_m[doubtful], heading_rad[doubtful])
+            clear[doubtful] = self.rectangles_clear(x_m[doubtful], y_m[doubtful], heading_rad[doubtful], chunk=128)
         return clear
 
     def first_collision(self, poses: np.ndarray) -> int | None:
@@ -125,71 +175,270 @@ class FootprintChecker:
 
     # ------------------------------------------------------------ exact check
     def rectangles_clear(self, x_m, y_m, heading_rad, *, chunk: int = 32) -> np.ndarray:
-        """Exact test of (margin-grown) rectangles against the blocked squares near them.
+        """Exact test of (margin-grown) rectangles against the obstacle boxes near them.
 
         Separating-axis theorem for two convex polygons: they are disjoint if and only if
-        their projections are disjoint on one of the edge normals (two of the square, two
-        of the rectangle). Vectorised over poses x blocked squares in the poses' window;
-        ``chunk`` consecutive poses share one window (pass a large one for poses that lie
-        close together, such as the samples of one expansion).
+        their projections are disjoint on one of the edge normals (two of the box, two of
+        the rectangle). The blocked cells are merged into axis-aligned boxes once per grid
+        (:func:`obstacle_boxes`), so a pose meets a few boxes instead of every blocked
+        square near it. Vectorised over poses x boxes in the poses' window; ``chunk``
+        consecutive poses share one window (pass a large one for poses that lie close
+        together, such as the samples of one expansion).
         """
-        x_m, y_m, heading_rad = (np.atleast_1d(np.asarray(v, dtype=float)) for v in (x_m, y_m, heading_rad))
-        if len(x_m) > chunk:
-            # one window per few consecutive poses keeps the poses x squares table small
-            return np.concatenate([
-                self.rectangles_clear(x_m[i : i + chunk], y_m[i : i + chunk], heading_rad[i : i + chunk], chunk=chunk)
-                for i in range(0, len(x_m), chunk)
-            ])
-        grid = self.grid
-        cs = grid.cell_size_m
-        if self._raw_blocked is None:
-            raw = np.pad(grid.blocked, self.pad_cells, constant_values=True)
-            # boundary squares: blocked with an open 4-neighbour. A rectangle meets the
-            # blocked union exactly when it meets a boundary square or lies inside the
-            # union (then its centre's cell is blocked), so only these need the full test.
-            inner = raw.copy()
-            inner[1:-1, 1:-1] &= raw[:-2, 1:-1] & raw[2:, 1:-1] & raw[1:-1, :-2] & raw[1:-1, 2:]
-            self._raw_boundary = raw & ~inner
-            self._raw_blocked = raw
-        vehicle = self.vehicle
-        grow = self._rect_grow_m
-        rear = -vehicle.rear_overhang_or_default_m - grow
-        front = -vehicle.rear_overhang_or_default_m + vehicle.length_m + grow
-        half_len = (front - rear) / 2.0
-        half_wid = vehicle.width_m / 2.0 + grow
-        mid = (rear + front) / 2.0
+        if not self.vehicle.has_rectangle:
+            raise VehicleError("rectangles_clear needs a vehicle with a rectangle footprint (length_m and width_m)")
+        x_m, y_m, heading_rad = _as_1d(x_m), _as_1d(y_m), _as_1d(heading_rad)
+        n = len(x_m)
+        if n <= chunk:
+            return self._rectangles_clear_window(x_m, y_m, heading_rad)
+        result = np.empty(n, dtype=bool)
+        for i in range(0, n, chunk):
+            result[i : i + chunk] = self._rectangles_clear_window(
+                x_m[i : i + chunk], y_m[i : i + chunk], heading_rad[i : i + chunk]
+            )
+        return result
+
+    def _rectangles_clear_window(self, x_m: np.ndarray, y_m: np.ndarray, heading_rad: np.ndarray) -> np.ndarray:
+        """:meth:`rectangles_clear` for poses that share one window of boxes."""
+        if len(x_m) == 0:
+            return np.ones(0, dtype=bool)
+        boxes = self._boxes if self._boxes is not None else self._build_boxes()
+        # window: every rectangle lies within reach of its reference point
+        reach = self._rect_reach_m
+        x_lo, x_hi = float(_min(x_m)) - reach, float(_max(x_m)) + reach
+        y_lo, y_hi = float(_min(y_m)) - reach, float(_max(y_m)) + reach
+        frame = boxes.frame_m
+        if x_lo <= frame[0] or y_lo <= frame[1] or x_hi >= frame[2] or y_hi >= frame[3]:
+            return self._rectangles_clear_border(x_m, y_m, heading_rad)
+        ids = boxes.near(x_lo, y_lo, x_hi, y_hi)
+        if len(ids) <= _FEW_BOXES:
+            return self._separated_few(x_m, y_m, heading_rad, ids)
+        return self._separated(x_m, y_m, heading_rad, ids)
+
+    def _separated_few(self, x_m: np.ndarray, y_m: np.ndarray, heading_rad: np.ndarray, ids: np.ndarray) -> np.ndarray:
+        """:meth:`_separated` for a few boxes, as one product of pose and box features.
+
+        Every separating-axis inequality ``|L| <= R`` is the pair ``L - R <= 0``,
+        ``-L - R <= 0``, and each side is bilinear in features of the pose
+        (1, x, y, cos, sin, |cos|, |sin|, x cos + y sin, y cos - x sin) and of the box
+        (centre x, centre y, half sizes, 1). So one matrix product, with the box side
+        worked out once per set of boxes, gives all eight values for all pairs.
+        """
+        if ids.size == 0:
+            return np.ones(len(x_m), dtype=bool)
+        weights = self._box_weights.get(ids.tobytes())
+        if weights is None:
+            weights = self._weights_of(ids)
+        n = len(x_m)
         c, s = np.cos(heading_rad), np.sin(heading_rad)
-        cx, cy = x_m + mid * c, y_m + mid * s
-        extent_x = half_len * np.abs(c) + half_wid * np.abs(s)
-        extent_y = half_len * np.abs(s) + half_wid * np.abs(c)
-        col_lo = (cx - extent_x - self.left_x_m) * self.inv_cell
-        col_hi = (cx + extent_x - self.left_x_m) * self.inv_cell
-        row_lo = (self.top_y_m - (cy + extent_y)) * self.inv_cell
-        row_hi = (self.top_y_m - (cy - extent_y)) * self.inv_cell
-        result = np.zeros(x_m.shape, dtype=bool)
-        # a rectangle reaching beyond the padded border is blocked (the map's outside is)
-        inside = (row_lo >= 0) & (col_lo >= 0) & (row_hi < self.padded_rows - 1) & (col_hi < self.padded_cols - 1)
-        if not inside.all():
-            if inside.any():
-                result[inside] = self.rectangles_clear(x_m[inside], y_m[inside], heading_rad[inside], chunk=chunk)
-            return result
-        col0, col1 = int(col_lo.min()), int(col_hi.max())
-        row0, row1 = int(row_lo.min()), int(row_hi.max())
-        # a rectangle whose centre lies in a blocked square is blocked outright
-        centre_blocked = self._raw_blocked[
-            ((self.top_y_m - cy) * self.inv_cell).astype(np.intp), ((cx - self.left_x_m) * self.inv_cell).astype(np.intp)
-        ]
-        rows, cols = np.nonzero(self._raw_boundary[row0 : row1 + 1, col0 : col1 + 1])
-        if rows.size == 0:
-            return ~centre_blocked
-        half = cs / 2.0
-        # centres of the blocked squares relative to each rectangle's centre: (poses, squares)
-        qx = (self.left_x_m + (cols + col0 + 0.5) * cs)[None, :] - cx[:, None]
-        qy = (self.top_y_m - (rows + row0 + 0.5) * cs)[None, :] - cy[:, None]
-        c2, s2 = c[:, None], s[:, None]
-        separated = np.abs(qx) > (extent_x + half)[:, None]
-        separated |= np.abs(qy) > (extent_y + half)[:, None]
-        square_on_axis = half * (np.abs(c2) + np.abs(s2))
-        separated |= np.abs(qx * c2 + qy * s2) > half_len + square_on_axis
-        separated |= np.abs(-qx * s2 + qy * c2) > half_wid + square_on_axis
-        return separated.all(axis=1) & ~centre_blocked
+        frame = self._boxes.frame_m
+        xr, yr = x_m - frame[0], y_m - frame[1]  # small numbers: coordinates from the frame's corner
+        features = np.empty((n, 9))
+        features[:, 0] = 1.0
+        features[:, 1] = xr
+        features[:, 2] = yr
+        features[:, 3] = c
+        features[:, 4] = s
+        np.abs(c, out=features[:, 5])
+        np.abs(s, out=features[:, 6])
+        features[:, 7] = xr * c + yr * s
+        features[:, 8] = yr * c - xr * s
+        below = (features @ weights) <= 0.0  # (n, boxes * 8), each box's eight values side by side
+        # a box meets the rectangle when all eight are true: read each eight bools as one word
+        meets = below.view(np.uint64) == _EIGHT_TRUE
+        return ~meets.any(axis=1)
+
+    def _weights_of(self, ids: np.ndarray) -> np.ndarray:
+        """Box side of :meth:`_separated_few` for the boxes ``ids``: (9 pose features, 8 * boxes)."""
+        boxes = self._boxes
+        frame = boxes.frame_m
+        box_features = np.stack((
+            boxes.centre_x_m[ids] - frame[0], boxes.centre_y_m[ids] - frame[1],
+            boxes.half_x_m[ids], boxes.half_y_m[ids], np.ones(len(ids)),
+        ))
+        weights = np.einsum("prq,qj->pjr", self._pose_box_tensor, box_features).reshape(9, -1)
+        if len(self._box_weights) >= _NEAR_CACHE_SIZE:
+            self._box_weights.clear()
+        self._box_weights[ids.tobytes()] = weights
+        return weights
+
+    def _separated(self, x_m: np.ndarray, y_m: np.ndarray, heading_rad: np.ndarray, ids: np.ndarray) -> np.ndarray:
+        """True where the rectangle meets none of the boxes ``ids`` (separating-axis test)."""
+        if ids.size == 0:
+            return np.ones(len(x_m), dtype=bool)
+        boxes = self._boxes
+        c, s = np.cos(heading_rad), np.sin(heading_rad)
+        ac, as_ = np.abs(c), np.abs(s)
+        mid, half_len, half_wid = self._rect_mid_m, self._rect_half_len_m, self._rect_half_wid_m
+        c2, s2, ac2, as2 = c[:, None], s[:, None], ac[:, None], as_[:, None]
+        # box centres relative to each rectangle's centre: (poses, boxes)
+        dx = boxes.centre_x_m[ids] - (x_m + mid * c)[:, None]
+        dy = boxes.centre_y_m[ids] - (y_m + mid * s)[:, None]
+        bhx, bhy = boxes.half_x_m[ids], boxes.half_y_m[ids]
+        # separating axes: x and y (the box's edge normals), then the rectangle's two
+        meets = np.abs(dx) <= (half_len * ac + half_wid * as_)[:, None] + bhx
+        meets &= np.abs(dy) <= (half_len * as_ + half_wid * ac)[:, None] + bhy
+        if meets.size > _DENSE_PAIRS:
+            # many boxes: test the rectangle's axes only on the pairs whose bounding boxes meet
+            pose, box = np.nonzero(meets)
+            dxp, dyp, cp, sp, acp, asp = dx[pose, box], dy[pose, box], c[pose], s[pose], ac[pose], as_[pose]
+            bhxp, bhyp = bhx[box], bhy[box]
+            hit = np.abs(dxp * cp + dyp * sp) <= bhxp * acp + bhyp * asp + half_len
+            hit &= np.abs(dyp * cp - dxp * sp) <= bhxp * asp + bhyp * acp + half_wid
+            clear = np.ones(len(x_m), dtype=bool)
+            clear[pose[hit]] = False
+            return clear
+        meets &= np.abs(dx * c2 + dy * s2) <= bhx * ac2 + bhy * as2 + half_len
+        meets &= np.abs(dy * c2 - dx * s2) <= bhx * as2 + bhy * ac2 + half_wid
+        return ~meets.any(axis=1)
+
+    def _rectangles_clear_border(self, x_m: np.ndarray, y_m: np.ndarray, heading_rad: np.ndarray) -> np.ndarray:
+        """Poses near the padded border: a rectangle reaching the border is blocked (the map's outside is)."""
+        frame = self._boxes.frame_m
+        c, s = np.cos(heading_rad), np.sin(heading_rad)
+        cx, cy = x_m + self._rect_mid_m * c, y_m + self._rect_mid_m * s
+        extent_x = self._rect_half_len_m * np.abs(c) + self._rect_half_wid_m * np.abs(s)
+        extent_y = self._rect_half_len_m * np.abs(s) + self._rect_half_wid_m * np.abs(c)
+        lo_x, lo_y, hi_x, hi_y = cx - extent_x, cy - extent_y, cx + extent_x, cy + extent_y
+        inside = (lo_x > frame[0]) & (lo_y > frame[1]) & (hi_x < frame[2]) & (hi_y < frame[3])
+        result = np.zeros(len(x_m), dtype=bool)
+        if inside.any():
+            ids = self._boxes.near(float(lo_x[inside].min()), float(lo_y[inside].min()),
+                                   float(hi_x[inside].max()), float(hi_y[inside].max()))
+            result[inside] = self._separated(x_m[inside], y_m[inside], heading_rad[inside], ids)
+        return result
+
+    def _build_boxes(self) -> "ObstacleBoxes":
+        raw = np.pad(self.grid.blocked, self.pad_cells, constant_values=True)
+        self._boxes = obstacle_boxes(raw, self.grid.cell_size_m, self.left_x_m, self.top_y_m)
+        return self._boxes
+
+
+@dataclass(frozen=True)
+class ObstacleBoxes:
+    """Blocked cells merged into axis-aligned boxes, with a coarse index for window queries.
+
+    ``centre_x_m``, ``centre_y_m``, ``half_x_m``, ``half_y_m`` describe each box;
+    ``frame_m`` is (x_lo, y_lo, x_hi, y_hi) of the grid they were built from. The index
+    lists, for each tile of ``tile_cells`` x ``tile_cells`` cells, the boxes that overlap it
+    (a box may be listed in several tiles; a repeated box only repeats a test).
+    """
+
+    centre_x_m: np.ndarray
+    centre_y_m: np.ndarray
+    half_x_m: np.ndarray
+    half_y_m: np.ndarray
+    frame_m: tuple[float, float, float, float]
+    tile_m: float
+    tile_cols: int
+    tile_rows: int
+    tile_start: np.ndarray  # (tiles + 1,) CSR offsets into tile_boxes, tiles in row-major order, row 0 at the top
+    tile_boxes: np.ndarray
+    cache: dict = field(default_factory=dict, repr=False, compare=False)  # tile range -> box ids
+
+    def near(self, x_lo: float, y_lo: float, x_hi: float, y_hi: float) -> np.ndarray:
+        """Ids of boxes that may overlap the window [x_lo, x_hi] x [y_lo, y_hi]: all that do, and few others."""
+        left, _, _, top = self.frame_m
+        inv = 1.0 / self.tile_m
+        c0 = max(0, int((x_lo - left) * inv))
+        c1 = min(self.tile_cols - 1, int((x_hi - left) * inv))
+        r0 = max(0, int((top - y_hi) * inv))
+        r1 = min(self.tile_rows - 1, int((top - y_lo) * inv))
+        key = (r0, r1, c0, c1)
+        ids = self.cache.get(key)
+        if ids is None:
+            start, listed = self.tile_start, self.tile_boxes
+            cols = self.tile_cols
+            ids = np.unique(np.concatenate([listed[start[r * cols + c0] : start[r * cols + c1 + 1]] for r in range(r0, r1 + 1)]))
+            if len(self.cache) >= _NEAR_CACHE_SIZE:
+                self.cache.clear()
+            self.cache[key] = ids
+        if len(ids) <= _FEW_BOXES:
+            return ids
+        keep = np.abs(self.centre_x_m[ids] - 0.5 * (x_lo + x_hi)) <= self.half_x_m[ids] + 0.5 * (x_hi - x_lo)
+        keep &= np.abs(self.centre_y_m[ids] - 0.5 * (y_lo + y_hi)) <= self.half_y_m[ids] + 0.5 * (y_hi - y_lo)
+        return ids[keep]
+
+
+def _separating_axis_tensor(mid_m: float, half_len_m: float, half_wid_m: float) -> np.ndarray:
+    """(9 pose features, 8 inequalities, 5 box features) coefficients of the separating-axis test.
+
+    Pose features p: 1, x, y, c, s, |c|, |s|, u = x c + y s, v = y c - x s (x, y of the
+    reference point, heading (c, s)); box features q: centre x, centre y, half x, half y, 1.
+    With the rectangle centre (x + mid c, y + mid s) and d = box centre - rectangle centre,
+    the four axes give |L_k| <= R_k:
+
+    - x: L = d_x, R = hl |c| + hw |s| + half_x
+    - y: L = d_y, R = hl |s| + hw |c| + half_y
+    - rectangle's long axis: L = d_x c + d_y s = bx c + by s - u - mid, R = hl + half_x |c| + half_y |s|
+    - rectangle's cross axis: L = d_y c - d_x s = by c - bx s - v, R = hw + half_x |s| + half_y |c|
+
+    and the eight rows are L_k - R_k and -L_k - R_k: the shapes meet when all eight are <= 0.
+    """
+    one, x, y, c, s, ac, as_, u, v = range(9)
+    bx, by, hx, hy, unit = range(5)
+    left = np.zeros((9, 4, 5))
+    right = np.zeros((9, 4, 5))
+    left[one, 0, bx], left[x, 0, unit], left[c, 0, unit] = 1.0, -1.0, -mid_m
+    left[one, 1, by], left[y, 1, unit], left[s, 1, unit] = 1.0, -1.0, -mid_m
+    left[c, 2, bx], left[s, 2, by], left[u, 2, unit], left[one, 2, unit] = 1.0, 1.0, -1.0, -mid_m
+    left[c, 3, by], left[s, 3, bx], left[v, 3, unit] = 1.0, -1.0, -1.0
+    right[ac, 0, unit], right[as_, 0, unit], right[one, 0, hx] = half_len_m, half_wid_m, 1.0
+    right[as_, 1, unit], right[ac, 1, unit], right[one, 1, hy] = half_len_m, half_wid_m, 1.0
+    right[one, 2, unit], right[ac, 2, hx], right[as_, 2, hy] = half_len_m, 1.0, 1.0
+    right[one, 3, unit], right[as_, 3, hx], right[ac, 3, hy] = half_wid_m, 1.0, 1.0
+    return np.stack((left - right, -left - right), axis=2).reshape(9, 8, 5)
+
+
+_EIGHT_TRUE = np.frombuffer(np.ones(8, dtype=np.bool_).tobytes(), dtype=np.uint64)[0]
+_DENSE_PAIRS = 2048  # above this many pose x box pairs, the rectangle's axes are tested on the few that matter
+_NEAR_CACHE_SIZE = 4096  # tile ranges remembered per grid
+_FEW_BOXES = 16  # up to this many boxes, testing them all is cheaper than filtering
+_TILE_CELLS = 32
+
+
+def obstacle_boxes(blocked: np.ndarray, cell_size_m: float, left_x_m: float, top_y_m: float,
+                   tile_cells: int = _TILE_CELLS) -> ObstacleBoxes:
+    """Cover the blocked cells of ``blocked`` (row 0 at the top) exactly by axis-aligned boxes.
+
+    Each row's maximal runs of blocked cells are found first; runs with the same columns
+    in consecutive rows are then merged into one box. The union of the boxes is exactly
+    the union of the blocked squares, so a convex shape meets the obstacles if and only if
+    it meets a box. Vectorised: one pass over the grid and one sort of the runs.
+    """
+    rows, cols = blocked.shape
+    edges = np.diff(np.pad(np.asarray(blocked, dtype=bool), ((0, 0), (1, 1))).view(np.int8), axis=1)
+    run_row, run_c0 = (a.astype(np.int32) for a in np.nonzero(edges == 1))
+    run_c1 = np.nonzero(edges == -1)[1].astype(np.int32)  # exclusive ends, same row-major order as the starts
+    del edges
+    order = np.lexsort((run_row, run_c1, run_c0))
+    run_row, run_c0, run_c1 = run_row[order], run_c0[order], run_c1[order]
+    new_box = np.ones(len(run_row), dtype=bool)
+    new_box[1:] = (run_c0[1:] != run_c0[:-1]) | (run_c1[1:] != run_c1[:-1]) | (run_row[1:] != run_row[:-1] + 1)
+    first = np.flatnonzero(new_box)
+    last = np.append(first[1:], len(run_row)) - 1
+    r0, r1 = run_row[first], run_row[last] + 1  # rows [r0, r1)
+    c0, c1 = run_c0[first], run_c1[first]  # cols [c0, c1)
+    cs = float(cell_size_m)
+    half_x = 0.5 * (c1 - c0) * cs
+    half_y = 0.5 * (r1 - r0) * cs
+    centre_x = left_x_m + 0.5 * (c0 + c1) * cs
+    centre_y = top_y_m - 0.5 * (r0 + r1) * cs
+    # tile index: every box in each tile it overlaps
+    tile_rows = -(-rows // tile_cells)
+    tile_cols = -(-cols // tile_cells)
+    tr0, tr1 = r0 // tile_cells, (r1 - 1) // tile_cells
+    tc0, tc1 = c0 // tile_cells, (c1 - 1) // tile_cells
+    span_r, span_c = tr1 - tr0 + 1, tc1 - tc0 + 1
+    count = span_r * span_c
+    box_id = np.repeat(np.arange(len(r0)), count)
+    k = np.arange(count.sum()) - np.repeat(np.cumsum(count) - count, count)
+    tile = (tr0[box_id] + k // span_c[box_id]) * tile_cols + tc0[box_id] + k % span_c[box_id]
+    order = np.argsort(tile, kind="stable")
+    tile_start = np.searchsorted(tile[order], np.arange(tile_rows * tile_cols + 1))
+    return ObstacleBoxes(
+        centre_x_m=centre_x, centre_y_m=centre_y, half_x_m=half_x, half_y_m=half_y,
+        frame_m=(left_x_m, top_y_m - rows * cs, left_x_m + cols * cs, top_y_m),
+        tile_m=tile_cells * cs, tile_cols=tile_cols, tile_rows=tile_rows,
+        tile_start=tile_start, tile_boxes=box_id[order],
+    )

@@ -30,6 +30,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from veer.planning.angles import wrap_angle
+
 __all__ = ["CostModel", "MotionEnd"]
 
 #: How a motion starts or ends for the junction cost: (gear: +1, -1 or 0 for a rotation, wheel fraction u).
@@ -166,7 +168,7 @@ class CostModel:
         if len(poses) < 2:
             return 0.0
         step = np.hypot(np.diff(poses[:, 0]), np.diff(poses[:, 1]))
-        turn = np.abs((np.diff(poses[:, 2]) + math.pi) % (2.0 * math.pi) - math.pi)
+        turn = np.abs(wrap_angle(np.diff(poses[:, 2])))
         gears = poses[1:, 3]
         kappa = np.asarray(curvature_per_m, dtype=float)[1:]
         total = 0.0

@@ -1,4 +1,4 @@
-"""Errors of the planner, each carrying the short code the contract and the CLI use.
+"""Errors of the planner, each carrying the short code that the path JSON, the node and the CLI use.
 
 ::
 
@@ -7,7 +7,7 @@
      +-- PoseError                       code "bad_pose"        start/goal off the map or in collision
      +-- SearchSettingsError             code "bad_search_settings"
     NoPath (Exception)                   the request was valid but no path was found;
-                                         ``reason`` is the contract's short code
+                                         ``reason`` is the path JSON's short code
 
 Input errors (the caller's fault, CLI exit 2) stand apart from ``NoPath`` (CLI exit 1),
 whose ``reason`` says whether the goal is provably unreachable (``goal_enclosed``) or

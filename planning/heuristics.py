@@ -9,7 +9,7 @@
   once per process and kept in a disk cache (the paper also precomputes it offline).
 
 Each is a lower bound obtained by dropping one set of constraints (LaValle, *Planning
-Algorithms*, 2006, section 15.1 and node 743), so their maximum guides the search past
+Algorithms*, 2006, section 15.1), so their maximum guides the search past
 both wrong headings and dead ends. The table is read at the nearest entry and the grid
 distance uses octile steps, so the combination is close to, but not strictly, admissible:
 it can over-estimate by a fraction of a grid step or a few percent of the length.

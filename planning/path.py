@@ -1,4 +1,4 @@
-"""The planner's answer: a resampled pose sequence with gear and curvature, as the contract's path JSON."""
+"""The planner's answer: a resampled pose sequence with gear and curvature, as the path JSON of docs/files.md."""
 
 from __future__ import annotations
 
@@ -55,7 +55,7 @@ class PlannedPath:
         return cls(poses, curvature_per_m, length, reverse, changes, stats)
 
     def to_document(self) -> dict:
-        """The contract's path JSON (status "found")."""
+        """The path JSON of docs/files.md (status "found")."""
         curvature = [None if not math.isfinite(c) else round(float(c), 6) for c in self.curvature_per_m]
         return {
             "status": "found",
@@ -70,7 +70,7 @@ class PlannedPath:
 
 
 def no_path_document(reason: str, detail: str, stats: dict) -> dict:
-    """The contract's path JSON for a valid request with no path."""
+    """The path JSON of docs/files.md for a valid request with no path."""
     return {
         "status": "no_path",
         "reason": reason,

@@ -64,7 +64,7 @@ class SearchSettings:
     goal_tolerance_m, goal_tolerance_deg : float
         How close the last pose must come to the goal.
     output_step_m : float
-        Largest spacing of poses in the output path (contract: at most 0.25 m).
+        Largest spacing of poses in the output path (docs/files.md: at most 0.25 m).
     refine_on_exhaustion : bool
         When every pose reachable at this resolution has been tried (narrow passages
         defeat coarse steering), search once more with twice the heading bins and

@@ -153,7 +153,7 @@ class Vehicle:
         return float(np.max(np.hypot(*self.footprint_corners(0.0, 0.0, 0.0).T)))
 
 
-#: The example vehicle of the contract: used when no vehicle file is given.
+#: The example vehicle (docs/files.md, "Vehicle"): used when no vehicle file is given.
 EXAMPLE_VEHICLE = Vehicle(wheelbase_m=2.0, max_steer_deg=30.0, radius_m=1.0)
 
 _VEHICLE_KEYS = tuple(f.name for f in fields(Vehicle))
@@ -176,7 +176,7 @@ def vehicle_from_mapping(values: dict, source: str = "vehicle") -> Vehicle:
 
 
 def load_vehicle(path: str | Path) -> Vehicle:
-    """Read a vehicle TOML file (contract section 2)."""
+    """Read a vehicle TOML file (docs/files.md, "Vehicle")."""
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8")
