@@ -26,7 +26,16 @@ exact narrow phase.
   projections are disjoint on one of their edge normals, here the box's x and y and the
   rectangle's two axes (Gottschalk, Lin & Manocha, "OBBTree", SIGGRAPH 1996; Ericson
   2005, section 4.4.1). Touching counts as a collision. The answer is exact for every
-  pose; no lookup table stands between it and the geometry.
+  pose; no lookup table stands between it and the geometry. With a few boxes (the
+  usual case) all eight inequalities of all pose x box pairs come from one matrix
+  product of pose features and box features (:func:`_separating_axis_tensor`).
+
+Configuration-space obstacle masks per heading bucket (Lozano-Perez, "Spatial planning:
+a configuration space approach", IEEE Trans. Computers C-32(2), 1983; LaValle 2006,
+section 4.3) were measured as the alternative and not used: on 0.1 m cells a 3.2 m body
+needs a dilation kernel of about 700 cells per bucket, a band of doubt of a cell plus
+the bucket's sweep remains for the exact test, and building the masks lazily cost more
+than the exact test they would save on the built-in scenarios.
 
 Poses are checked at samples at most ``sample_step_m`` apart; the mask is inflated by a
 further half step (plus the chord sagitta of the tightest arc), and the rectangle grown
@@ -169,9 +178,26 @@ class FootprintChecker:
         poses = np.asarray(poses, dtype=float)
         if len(poses) == 0:
             return None
-        clear = self.poses_clear(poses[:, 0], poses[:, 1], poses[:, 2])
-        bad = np.flatnonzero(~clear)
-        return int(bad[0]) if bad.size else None
+        return self._first_blocked(poses[:, 0], poses[:, 1], poses[:, 2])
+
+    def all_clear(self, x_m, y_m, heading_rad) -> bool:
+        """True when the footprint is clear at every pose: ``poses_clear(...).all()``, stopping at the first blocked one."""
+        return self._first_blocked(x_m, y_m, heading_rad) is None
+
+    def _first_blocked(self, x_m, y_m, heading_rad) -> int | None:
+        """Index of the first blocked pose, else None: circles for all, then exact checks in order."""
+        x_m, y_m, heading_rad = _as_1d(x_m), _as_1d(y_m), _as_1d(heading_rad)
+        doubtful = np.flatnonzero(~self.circles_clear(x_m, y_m, heading_rad))
+        if doubtful.size == 0:
+            return None
+        if not self.vehicle.has_rectangle:
+            return int(doubtful[0])
+        for i in range(0, len(doubtful), _ORDERED_CHUNK):
+            idx = doubtful[i : i + _ORDERED_CHUNK]
+            clear = self._rectangles_clear_window(x_m[idx], y_m[idx], heading_rad[idx])
+            if not clear.all():
+                return int(idx[np.argmin(clear)])
+        return None
 
     # ------------------------------------------------------------ exact check
     def rectangles_clear(self, x_m, y_m, heading_rad, *, chunk: int = 32) -> np.ndarray:
@@ -391,6 +417,7 @@ def _separating_axis_tensor(mid_m: float, half_len_m: float, half_wid_m: float) 
 
 
 _EIGHT_TRUE = np.frombuffer(np.ones(8, dtype=np.bool_).tobytes(), dtype=np.uint64)[0]
+_ORDERED_CHUNK = 48  # poses per exact check when stopping at the first blocked one
 _DENSE_PAIRS = 2048  # above this many pose x box pairs, the rectangle's axes are tested on the few that matter
 _NEAR_CACHE_SIZE = 4096  # tile ranges remembered per grid
 _FEW_BOXES = 16  # up to this many boxes, testing them all is cheaper than filtering

@@ -8,6 +8,8 @@ The figure is ``stats["plan_s"]`` as the planner reports it: median and best of
 ``--repeat`` runs, next to the same problem in plain mode (``SearchSettings.plain()``:
 Euclidean heuristic only, no analytic shots, no 2-D field in the heuristic, goal test on
 the goal's lattice cell) and the speed-up plain / default measured in the same process.
+The same scenarios are then planned with the example rectangle footprint (3.2 x 1.6 m,
+rear overhang 0.6 m, same wheelbase and steering) and its median set against the disc's.
 
 Also measured: the warehouse path against the best one found with weight 1.0 and ten
 times the budget; the search loop's expansion rate (expansions / ``stats["search_s"]``)
@@ -45,13 +47,14 @@ import cv2
 import numpy as np
 
 from veer.maps import inflate, load_map
-from veer.planning import EXAMPLE_VEHICLE, NoPath, Planner, SearchSettings
+from veer.planning import EXAMPLE_VEHICLE, NoPath, Planner, SearchSettings, Vehicle
 from veer.planning.heuristics import build_turning_table, turning_table
 from veer.planning.settings import DEFAULT_SEARCH_SETTINGS
 from veer.tools.bench_maps import write_map
 from veer.tools.scenarios import SCENARIO_NAMES, build_scenario, write_scenario_map
 
 __all__ = [
+    "EXAMPLE_RECTANGLE",
     "Outcome",
     "ScenarioResult",
     "build_large_map",
@@ -78,6 +81,7 @@ TARGET_BEST_RATIO = 1.05  # warehouse: default length / best length with 10x bud
 TARGET_RATE_FORWARD_PER_S = 100_000.0
 TARGET_RATE_REVERSE_PER_S = 60_000.0
 TARGET_PEAK_BYTES = 400e6  # 400 MB for the 2000 x 2000 map
+TARGET_RECT_RATIO = 1.5  # rectangle plan_s / disc plan_s (medians), on every scenario
 
 # ---- run settings
 PLAIN_MAX_EXPANSIONS = 2_000_000
@@ -90,6 +94,13 @@ LARGE_SIZE = 2000
 LARGE_CELL_SIZE_M = 0.1
 LARGE_SEED = 7
 LARGE_FLOOR, LARGE_OBSTACLE = 254, 0
+#: The example rectangle: the example vehicle's wheelbase and steering, a 3.2 x 1.6 m body.
+EXAMPLE_RECTANGLE = Vehicle(
+    wheelbase_m=EXAMPLE_VEHICLE.wheelbase_m, max_steer_deg=EXAMPLE_VEHICLE.max_steer_deg,
+    radius_m=EXAMPLE_VEHICLE.radius_m, length_m=3.2, width_m=1.6, rear_overhang_m=0.6,
+)
+# A rectangle run that needs longer than this is cut off (reported as a deadline, NOT met).
+RECT_MAX_TIME_S = 1.0
 
 _DASH = "–"
 
@@ -136,11 +147,12 @@ class Outcome:
 
 @dataclass
 class ScenarioResult:
-    """Default-mode runs and plain-mode runs of one scenario."""
+    """Default-mode runs, plain-mode runs and rectangle-footprint runs of one scenario."""
 
     name: str
     runs: list[Outcome]
     plain: list[Outcome]
+    rect: list[Outcome] | None = None
 
     @property
     def median_s(self) -> float:
@@ -157,6 +169,17 @@ class ScenarioResult:
     @property
     def speedup(self) -> float:
         return self.plain_s / self.median_s if self.median_s > 0 else math.inf
+
+    @property
+    def rect_s(self) -> float | None:
+        return statistics.median(o.plan_s for o in self.rect) if self.rect else None
+
+    @property
+    def rect_ratio(self) -> float | None:
+        """Rectangle median / disc median."""
+        if not self.rect:
+            return None
+        return self.rect_s / self.median_s if self.median_s > 0 else math.inf
 
 
 def plan_once(grid, start, goal, settings: SearchSettings, vehicle=EXAMPLE_VEHICLE) -> Outcome:
@@ -498,6 +521,27 @@ def format_report(
     ))
     out.append("")
 
+    rows = []
+    for r in results:
+        if not r.rect:
+            continue
+        first = r.rect[0]
+        rows.append([
+            r.name, _ms(r.median_s), first.status_text, _ms(r.rect_s), _ms(min(o.plan_s for o in r.rect)),
+            f"{r.rect_ratio:.2f}x", f"<= {TARGET_RECT_RATIO:g}x", tally(r.rect_ratio <= TARGET_RECT_RATIO),
+            str(first.expansions), _num(first.length_m, ".2f"),
+        ])
+    if rows:
+        out.append("Rectangle footprint (3.2 x 1.6 m, rear overhang 0.6 m, same wheelbase, steering and settings; "
+                   f"cut off after {RECT_MAX_TIME_S:g} s) against the disc, medians of `stats.plan_s`:")
+        out.append("")
+        out.append(markdown_table(
+            ["scenario", "disc ms", "rect status", "rect ms", "rect min ms", "rect / disc", "target", "met",
+             "rect expansions", "rect length m"],
+            rows, right={1, 3, 4, 5, 8, 9},
+        ))
+        out.append("")
+
     rows = [[f"turning table build, {kind} (`build_turning_table`, once per process)", f"{s:.3f} s", _DASH, _DASH]
             for kind, s in build_s.items()]
     if best is not None:
@@ -601,7 +645,13 @@ def main(argv: list[str] | None = None) -> int:
                      for _ in range(args.plain_repeat)]
             _progress(f"{name}: plain {plain[0].status_text}, {statistics.median(o.plan_s for o in plain):.3f} s, "
                       f"{plain[0].expansions} expansions")
-            results.append(ScenarioResult(name, runs, plain))
+            rect_settings = replace(settings, max_time_s=min(settings.max_time_s, RECT_MAX_TIME_S))
+            plan_once(grid, scenario.start, scenario.goal, rect_settings, EXAMPLE_RECTANGLE)  # warm-up
+            rect = [plan_once(grid, scenario.start, scenario.goal, rect_settings, EXAMPLE_RECTANGLE)
+                    for _ in range(args.repeat)]
+            _progress(f"{name}: rectangle {rect[0].status_text}, median "
+                      f"{statistics.median(o.plan_s for o in rect):.4f} s, {rect[0].expansions} expansions")
+            results.append(ScenarioResult(name, runs, plain, rect))
 
         best = None
         if "warehouse" in grids:

@@ -119,6 +119,17 @@ def test_small_run_prints_consistent_tables(tmp_path, capsys):
     assert plain["open_yard"][11] == ("met" if speedup >= 20 else "NOT met")
     assert plain["enclosed_goal"][11] == "–"  # no target where no path exists
 
+    # the rectangle beside the disc on every scenario, its ratio from the two medians
+    rect = {row[0]: row for row in _table_rows(report, "scenario", "disc ms", "rect status")}
+    assert set(rect) == {"open_yard", "enclosed_goal"}
+    assert float(rect["open_yard"][1]) == pytest.approx(median_ms, abs=0.051)
+    assert rect["open_yard"][2] == "found"
+    ratio = float(rect["open_yard"][5].rstrip("x"))
+    assert ratio == pytest.approx(float(rect["open_yard"][3]) / median_ms, rel=0.05, abs=0.02)
+    assert rect["open_yard"][7] == ("met" if ratio <= 1.5 else "NOT met")
+    assert 0 < float(rect["open_yard"][4]) <= float(rect["open_yard"][3])
+    assert rect["enclosed_goal"][2].startswith("no_path")
+
     other = {row[0]: row for row in _table_rows(report, "figure")}
     assert any("turning table build, reeds_shepp" in key for key in other)
     assert any("expansion rate, forward-only" in key for key in other)
