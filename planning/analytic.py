@@ -64,10 +64,10 @@ class GoalCurves:
         checker = self.checker
         # most curves that fail do so early and widely: a pass at four times the step first
         sparse = path.sample(start, 4.0 * checker.sample_step_m)
-        if not checker.poses_clear(sparse[1:, 0], sparse[1:, 1], sparse[1:, 2]).all():
+        if not checker.all_clear(sparse[1:, 0], sparse[1:, 1], sparse[1:, 2]):
             return None
         samples = path.sample(start, checker.sample_step_m)
-        if not checker.poses_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]).all():
+        if not checker.all_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]):
             return None
         return cost + self.clearance_cost(samples), samples
 
@@ -125,7 +125,7 @@ class GoalCurves:
                 break
             pieces = self._spin_pieces((x, y, h), (ex, ey, eh), dist, gear, facing)
             dense = np.vstack([p[2] for p in pieces])
-            if not self.checker.poses_clear(dense[:, 0], dense[:, 1], dense[:, 2]).all():
+            if not self.checker.all_clear(dense[:, 0], dense[:, 1], dense[:, 2]):
                 continue
             cost = base + self.clearance_cost(np.vstack(([x, y, h], dense)))
             if cost <= limit:

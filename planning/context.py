@@ -31,7 +31,7 @@ from veer.planning.primitives import primitive_step_m
 from veer.planning.settings import SearchSettings
 from veer.planning.vehicle import Vehicle
 
-__all__ = ["GridContext", "GridCache", "SAMPLE_STEP_CELLS"]
+__all__ = ["GridContext", "GridCache", "SAMPLE_STEP_CELLS", "body_centre_m"]
 
 #: Collision samples along a motion, in map cells.
 SAMPLE_STEP_CELLS = 0.5
@@ -51,6 +51,8 @@ class GridContext:
     open_coarse_optimistic: np.ndarray  # lattice cells the vehicle might reach (prove enclosure)
     proximity_coarse: np.ndarray  # flat, per lattice cell: clearance cost per metre
     prepare_s: float
+    # rectangles only: 8-connected components of the cells where the body centre may be
+    body_components: np.ndarray | None = None
 
     @property
     def inflated(self) -> InflatedGrid:
@@ -108,7 +110,11 @@ class GridCache:
         lattice = map_frame.coarsened(factor)
         inflated = checker.inflated
         open_coarse = coarse_open_mask(inflated.blocked, factor)
-        open_optimistic = coarse_open_mask(~_optimistic_open(inflated, self.vehicle), factor)
+        centre_open = _centre_open(inflated, self.vehicle)
+        open_optimistic = coarse_open_mask(~_optimistic_open(centre_open, inflated, self.vehicle), factor)
+        components = None
+        if self.vehicle.has_rectangle:
+            components = cv2.connectedComponents(centre_open.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)[1]
         costs = CostModel.for_vehicle(self.vehicle, settings)
         if costs.prices_clearance:
             # per lattice cell, from its tightest map cell
@@ -118,7 +124,7 @@ class GridCache:
             proximity = np.zeros(open_coarse.shape)
         context = GridContext(
             grid, checker, map_frame, map_frame.padded(checker.pad_cells), lattice, factor, open_coarse, open_optimistic,
-            np.ascontiguousarray(proximity, dtype=np.float64).ravel(), time.perf_counter() - t0,
+            np.ascontiguousarray(proximity, dtype=np.float64).ravel(), time.perf_counter() - t0, components,
         )
         with self._lock:
             self._contexts[key] = context
@@ -167,24 +173,41 @@ class GridCache:
         return clearance
 
 
-def _optimistic_open(inflated: InflatedGrid, vehicle: Vehicle) -> np.ndarray:
+def _inner_disc(vehicle: Vehicle) -> tuple[float, float]:
+    """(radius, offset ahead of the rear axle) of the largest disc inside the footprint."""
+    if vehicle.has_rectangle:
+        return min(vehicle.width_m, vehicle.length_m) / 2.0, vehicle.length_m / 2.0 - vehicle.rear_overhang_or_default_m
+    return float(vehicle.radius_m), 0.0
+
+
+def _centre_open(inflated: InflatedGrid, vehicle: Vehicle) -> np.ndarray:
+    """Cells that may hold the centre of the footprint's inner disc, for some pose of the vehicle.
+
+    Wherever that disc fits, the centre-to-centre clearance of its cell is at least its
+    radius less half a cell diagonal; so a cell outside this mask never holds it.
+    """
+    radius, _ = _inner_disc(vehicle)
+    cs = inflated.grid.cell_size_m
+    return inflated.clearance_m >= np.float32(radius - cs / math.sqrt(2.0))
+
+
+def body_centre_m(vehicle: Vehicle, pose) -> tuple[float, float]:
+    """World position of the inner disc's centre (the body centre of a rectangle) at ``pose``."""
+    _, offset = _inner_disc(vehicle)
+    x, y, h = pose
+    return x + offset * math.cos(h), y + offset * math.sin(h)
+
+
+def _optimistic_open(centre_open: np.ndarray, inflated: InflatedGrid, vehicle: Vehicle) -> np.ndarray:
     """Cells where the reference point might still be, for any heading: never under-estimated.
 
-    The collision mask is conservative (margins, covering circles); the proof that a goal
-    is enclosed and the 2-D field need the opposite, so that they never close a passage
-    the vehicle fits through. The footprint contains a disc (radius_m, or half the
-    rectangle's shorter side around its centre); wherever that disc fits, the centre-to-centre
-    clearance of its cell is at least its radius less half a cell diagonal. For a
-    rectangle the reference point is then within the centre's offset (plus a cell
-    diagonal for the two cells) of such a cell.
+    The collision mask is conservative (margins, covering circles); the 2-D field and the
+    proof that a goal is enclosed need the opposite, so that they never close a passage
+    the vehicle fits through. For a rectangle the reference point is within the inner
+    disc's offset (plus a cell diagonal for the two cells) of a cell of ``centre_open``.
     """
     cs = inflated.grid.cell_size_m
-    if vehicle.has_rectangle:
-        inner_radius = min(vehicle.width_m, vehicle.length_m) / 2.0
-        offset = abs(vehicle.length_m / 2.0 - vehicle.rear_overhang_or_default_m)
-    else:
-        inner_radius, offset = float(vehicle.radius_m), 0.0
-    centre_open = inflated.clearance_m >= np.float32(inner_radius - cs / math.sqrt(2.0))
+    offset = abs(_inner_disc(vehicle)[1])
     if offset <= 0.0:
         return centre_open
     to_open_m = cv2.distanceTransform((~centre_open).astype(np.uint8), cv2.DIST_L2, cv2.DIST_MASK_PRECISE) * cs

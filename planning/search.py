@@ -29,7 +29,7 @@ import numpy as np
 from veer.maps import InflatedGrid, OccupancyGrid
 from veer.planning.angles import wrap_angle
 from veer.planning.assembly import assemble_path
-from veer.planning.context import GridCache, GridContext
+from veer.planning.context import GridCache, GridContext, body_centre_m
 from veer.planning.errors import NoPath, PlanningError, PoseError
 from veer.planning.inputs import pose_argument, poses_argument
 from veer.planning.kernel import run_search
@@ -190,6 +190,15 @@ class Planner:
         goal (tight margins, a rectangle the circles over-cover), the optimistic one
         decides whether the goal is really walled in, and guides instead.
         """
+        if context.body_components is not None:
+            # a rectangle's body centre moves through 8-connected cells where its inner disc
+            # fits: start and goal in different components cannot be joined by any motion
+            labels = [
+                int(context.body_components[context.map_frame.cell_of(*body_centre_m(self.vehicle, pose))])
+                for pose in (start, goal)
+            ]
+            if labels[0] and labels[1] and labels[0] != labels[1]:
+                raise NoPath("goal_enclosed", "the goal cannot be reached from the start even ignoring the turning limit")
         lattice = context.lattice
         goal_cell = lattice.cell_of(goal[0], goal[1])
         start_cell = lattice.cell_of(start[0], start[1])

@@ -224,13 +224,25 @@ def test_visited_table_bounds_an_exhausted_search(bay, forward_only_bay):
     assert 0 < fine <= keys * 2 * bins
 
 
-def test_enclosed_goal_is_proven_before_searching():
+@pytest.mark.parametrize("vehicle", [EXAMPLE_VEHICLE, RECT], ids=["disc", "rectangle"])
+def test_enclosed_goal_is_proven_before_searching(vehicle):
     scenario = build_scenario("enclosed_goal")
     with pytest.raises(NoPath) as caught:
-        Planner(EXAMPLE_VEHICLE).plan(scenario.grid, scenario.start, scenario.goal)
+        Planner(vehicle).plan(scenario.grid, scenario.start, scenario.goal)
     assert caught.value.reason == "goal_enclosed"
     assert caught.value.stats["expansions"] == 0
     assert "plan_s" in caught.value.stats
+
+
+def test_rectangle_enclosure_proof_never_closes_a_door_it_fits_through(geo):
+    """A room whose doorway is a hair wider than the rectangle: not enclosed, and planned."""
+    width = RECT.width_m + 0.5
+    grid = geo.with_boxes(geo.open_grid(30.0, 24.0), [
+        (14.0, 0.0, 14.4, 10.0), (14.0, 10.0 + width, 14.4, 24.0),  # a wall with a doorway
+    ])
+    start, goal = (5.0, 12.0, 0.0), (24.0, 12.0, 0.0)
+    path = Planner(RECT).plan(grid, start, goal)
+    assert geo.path_problems(grid, RECT, path, start, goal) == []
 
 
 # ------------------------------------------------------------------ bad poses
