@@ -52,20 +52,23 @@ class GoalCurves:
         step = np.hypot(np.diff(samples[:, 0]), np.diff(samples[:, 1]))
         return self.costs.clearance(self.context.proximity_at(samples[1:, 0], samples[1:, 1]), step)
 
-    def curve_cost(self, path, start, before: MotionEnd | None = None, limit: float = math.inf):
+    def curve_cost(self, path, start, before: MotionEnd | None = None, limit: float = math.inf,
+                   sparse_first: bool = True):
         """(cost, dense samples) of ``path`` driven from ``start``, or None when it collides.
 
         A curve whose cost before clearance already exceeds ``limit`` is refused before
-        it is sampled.
+        it is sampled; ``sparse_first`` checks a coarse sampling before the dense one
+        (worth it where most curves collide, as goal curves do; shortcuts mostly pass).
         """
         cost = self.costs.curve(path, before)
         if cost > limit:
             return None
         checker = self.checker
-        # most curves that fail do so early and widely: a pass at four times the step first
-        sparse = path.sample(start, 4.0 * checker.sample_step_m)
-        if not checker.all_clear(sparse[1:, 0], sparse[1:, 1], sparse[1:, 2]):
-            return None
+        if sparse_first:
+            # most goal curves that fail do so early and widely: a pass at four times the step first
+            sparse = path.sample(start, 4.0 * checker.sample_step_m)
+            if not checker.all_clear(sparse[1:, 0], sparse[1:, 1], sparse[1:, 2]):
+                return None
         samples = path.sample(start, checker.sample_step_m)
         if not checker.all_clear(samples[1:, 0], samples[1:, 1], samples[1:, 2]):
             return None
@@ -82,7 +85,7 @@ class GoalCurves:
         return self.between((x_m, y_m, heading_rad), self.goal, before, more_within=more_within)
 
     def between(self, start, end, before: MotionEnd | None = None, limit: float = math.inf, *,
-                forward_only: bool = False, more_within: float = math.inf):
+                forward_only: bool = False, more_within: float = math.inf, sparse_first: bool = True):
         """The cheapest collision-free piece from ``start`` to ``end`` within ``limit``: (piece, cost), or None.
 
         Checks at most ``candidates`` curves: the cheapest, then the shortest word (when it
@@ -104,7 +107,7 @@ class GoalCurves:
             if cost > limit or (rank and cost > more_within):
                 return None
             path = word.path()
-            found = self.curve_cost(path, start, before, limit)
+            found = self.curve_cost(path, start, before, limit, sparse_first)
             if found is not None and found[0] <= limit:
                 return ("curve", path), found[0]
         return None

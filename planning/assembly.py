@@ -96,8 +96,8 @@ def _shortcut(problem: SearchProblem, waypoints, pieces):
             (p[0] == "prim" and p[1].gear > 0) or (p[0] == "curve" and p[1].reverse_length_m == 0.0)
             for p in pieces[i:j]
         ) and not problem.vehicle.turns_in_place
-        found = goal_curves.between(waypoints[i][:3], waypoints[j][:3], before, budget,
-                                    forward_only=forward_only, more_within=-1.0)  # the cheapest curve only
+        found = goal_curves.between(waypoints[i][:3], waypoints[j][:3], before, budget, forward_only=forward_only,
+                                    more_within=-1.0, sparse_first=False)  # the cheapest curve only
         if found is None:
             return None
         piece, cost = found

@@ -265,7 +265,7 @@ def integrate_segments(start, segments, turn_radius_m, step_m) -> np.ndarray:
         On a bad pose, radius, step or segment kind.
     """
     r = _check_radius(turn_radius_m)
-    x, y, th = pose_argument(start, "start")
+    x, y, th = start_pose = pose_argument(start, "start")
     try:
         step = float(step_m)
     except (TypeError, ValueError):
@@ -280,24 +280,37 @@ def integrate_segments(start, segments, turn_radius_m, step_m) -> np.ndarray:
         if float(length) != 0.0:
             moving.append((kind, float(length)))
     first_gear = 1.0 if not moving or moving[0][1] > 0 else -1.0
-    blocks = [np.array([[x, y, th, first_gear]])]
+    # every segment's start pose in closed form, then all samples in one vectorised pass
+    counts, lengths, turn, x0, y0, th0 = [], [], [], [], [], []
     for kind, length in moving:
-        n = max(1, math.ceil(abs(length) / step))
-        s = length * (np.arange(1, n + 1, dtype=float) / n)
-        s[-1] = length
-        if kind == "S":
-            chord, half = s, np.zeros_like(s)
-        else:
-            chord = 2.0 * r * np.sin(s / (2.0 * r))
-            half = (s if kind == "L" else -s) / (2.0 * r)
-        block = np.empty((n, 4))
-        block[:, 0] = x + chord * np.cos(th + half)
-        block[:, 1] = y + chord * np.sin(th + half)
-        block[:, 2] = th + 2.0 * half
-        block[:, 3] = 1.0 if length > 0 else -1.0
-        blocks.append(block)
-        x, y, th = block[-1, 0], block[-1, 1], block[-1, 2]
-    out = np.concatenate(blocks)
+        sign = 1.0 if kind == "L" else -1.0 if kind == "R" else 0.0
+        counts.append(max(1, math.ceil(abs(length) / step)))
+        lengths.append(length)
+        turn.append(sign)
+        x0.append(x)
+        y0.append(y)
+        th0.append(th)
+        half = sign * length / (2.0 * r)
+        chord = length if not sign else 2.0 * r * math.sin(length / (2.0 * r))
+        x, y, th = x + chord * math.cos(th + half), y + chord * math.sin(th + half), th + 2.0 * half
+    total = sum(counts)
+    out = np.empty((total + 1, 4))
+    out[0] = (*start_pose, first_gear)
+    if total:
+        seg = np.repeat(np.arange(len(counts)), counts)
+        n = np.asarray(counts, dtype=float)[seg]
+        offsets = np.cumsum(counts) - np.asarray(counts)
+        k = np.arange(1, total + 1, dtype=float) - np.repeat(offsets, counts)
+        length = np.asarray(lengths)[seg]
+        s = length * (k / n)  # k = n gives exactly the segment's length
+        sign = np.asarray(turn)[seg]
+        half = sign * s / (2.0 * r)
+        chord = np.where(sign == 0.0, s, 2.0 * r * np.sin(s / (2.0 * r)))
+        heading0 = np.asarray(th0)[seg]
+        out[1:, 0] = np.asarray(x0)[seg] + chord * np.cos(heading0 + half)
+        out[1:, 1] = np.asarray(y0)[seg] + chord * np.sin(heading0 + half)
+        out[1:, 2] = heading0 + 2.0 * half
+        out[1:, 3] = np.where(length > 0, 1.0, -1.0)
     out[:, 2] = wrap_angle(out[:, 2])
     return out
 
