@@ -130,7 +130,7 @@ def _message_int(message: Mapping, field: str) -> int:
 
 
 def grid_from_message(message: Mapping, *, max_cells: int = DEFAULT_MAX_CELLS) -> OccupancyGrid:
-    """Build a grid from a grid message (contract section 3, ``kind = "grid"``).
+    """Build a grid from a grid message (docs/protocol.md, ``kind = "grid"``).
 
     Parameters
     ----------
