@@ -51,6 +51,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from veer.maps import OccupancyGrid, inflate
+from veer.planning.frame import GridFrame
 from veer.planning.errors import VehicleError
 from veer.planning.vehicle import Vehicle
 
@@ -117,12 +118,14 @@ class FootprintChecker:
         self.pad_cells = int(math.ceil(reach_m / cs)) + 2
         pad = self.pad_cells
         blocked = np.pad(self.inflated.blocked, pad, constant_values=True)
-        self.padded_cols = blocked.shape[1]
-        self.padded_rows = blocked.shape[0]
         self.blocked_flat = np.ascontiguousarray(blocked).ravel()
-        self.inv_cell = 1.0 / cs
-        self.left_x_m = grid.origin_m[0] - pad * cs
-        self.top_y_m = grid.origin_m[1] + grid.rows * cs + pad * cs
+        # the padded mask's cells (veer.planning.frame); its numbers copied out for the hot paths
+        self.frame = GridFrame.of_grid(grid).padded(pad)
+        self.padded_rows, self.padded_cols = self.frame.shape
+        self.inv_cell = self.frame.inv_cell
+        self.left_x_m, self.top_y_m = self.frame.left_x_m, self.frame.top_y_m
+        # one circle on the rear axle (the disc): a pose's cell is its position's cell
+        self._single_centre = len(self.circle_offsets_m) == 1 and self.circle_offsets_m[0] == 0.0
         self._boxes: ObstacleBoxes | None = None  # blocked cells as boxes, built on first exact check
         # the rectangle grown by the between-samples allowance, about its centre on the long axis
         if vehicle.has_rectangle:
@@ -143,17 +146,12 @@ class FootprintChecker:
     # ------------------------------------------------------------------ lookups
     def flat_index(self, x_m, y_m) -> np.ndarray:
         """Index into ``blocked_flat`` of the cells holding world points (clipped to the border)."""
-        col = np.asarray((np.asarray(x_m) - self.left_x_m) * self.inv_cell).astype(np.intp)
-        row = np.asarray((self.top_y_m - np.asarray(y_m)) * self.inv_cell).astype(np.intp)
-        # clip with two ufuncs in place (np.clip's wrapper costs more than the work here)
-        np.minimum(np.maximum(col, 0, out=col), self.padded_cols - 1, out=col)
-        np.minimum(np.maximum(row, 0, out=row), self.padded_rows - 1, out=row)
-        row *= self.padded_cols
-        row += col
-        return row[()]  # a scalar for scalar input, as before
+        return self.frame.flat_of(x_m, y_m)
 
     def circles_clear(self, x_m, y_m, heading_rad) -> np.ndarray:
         """True where every covering circle of the pose lies in a clear cell (conservative)."""
+        if self._single_centre:
+            return ~self.blocked_flat[np.atleast_1d(self.frame.flat_of(x_m, y_m))]
         x_m, y_m, heading_rad = (np.atleast_1d(np.asarray(v, dtype=float)) for v in (x_m, y_m, heading_rad))
         c, s = np.cos(heading_rad), np.sin(heading_rad)
         offsets = self.circle_offsets_m[:, None]

@@ -41,6 +41,7 @@ def test_frame_floors_points_outside_rather_than_truncating():
     rows, cols = frame.cell_of(np.array([-0.5]), np.array([10.5]))
     assert rows[0] == -1 and cols[0] == -1
     assert frame.flat_of(np.array([-0.5]), np.array([10.5]))[0] == 0  # clipped to the corner cell
+    assert frame.flat_of(-0.5, 10.5) == 0 and frame.flat_of(1.5, 2.5) == 7 * 10 + 1  # scalars too
 
 
 def test_padded_and_coarse_frames_share_world_placement():
