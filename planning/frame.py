@@ -1,27 +1,34 @@
 """Square cell frames in the world: the one place where planning converts cells and metres.
 
-A :class:`GridFrame` places ``rows x cols`` square cells of edge ``cell_m`` with the top
-edge of row 0 at world ``y = top_y_m`` and the left edge of column 0 at ``x = left_x_m``
-(world y up, rows down, as in ``veer.maps``). Cell ``(row, col)`` covers::
+A :class:`GridFrame` places ``rows x cols`` square cells of edge ``cell_m`` with the
+lower-left corner of the frame at world ``(left_x_m, bottom_y_m)`` (world y up, rows
+down, as in ``veer.maps``). Cell ``(row, col)`` covers the half-open square::
 
     x in [left_x_m + col * cell_m,  left_x_m + (col + 1) * cell_m)
-    y in (top_y_m - (row + 1) * cell_m,  top_y_m - row * cell_m]
+    y in [bottom_y_m + (rows - 1 - row) * cell_m,  bottom_y_m + (rows - row) * cell_m)
 
-and a world point lies in row ``floor((top_y_m - y) / cell_m)``, column
-``floor((x - left_x_m) / cell_m)``: floor, not truncation, so points above or left of
-the frame get negative indices rather than row or column 0.
+so a world point lies in column ``floor((x - left_x_m) / cell_m)`` and row
+``rows - 1 - floor((y - bottom_y_m) / cell_m)``: the same arithmetic as
+``OccupancyGrid.world_to_cell``, floor (not truncation) on both axes, so points outside
+get indices outside ``[0, rows) x [0, cols)`` and a point on a cell edge belongs to the
+cell on its right / above, as in ``veer.maps``.
 
 The planner uses three frames of one grid, all derived here:
 
-* the map's own cells (:meth:`GridFrame.of_grid`, the same placement as
-  ``OccupancyGrid.world_to_cell``);
+* the map's own cells (:meth:`GridFrame.of_grid`);
 * the padded collision grid, ``pad`` blocked cells around the map, so looking up a
   motion sample never needs a bounds check (:meth:`GridFrame.padded`);
 * the search lattice, blocks of ``factor x factor`` map cells sharing the map's top-left
-  corner, whose cells key the visited table (:meth:`GridFrame.coarsened`).
+  corner, whose cells key the visited table (:meth:`GridFrame.coarsened`; partial blocks
+  at the bottom and right edges count as whole cells).
+
+The search loop (``veer.planning.kernel``) inlines the conversion from the top edge,
+``floor((top_y_m - y) / cell_m)``, for speed; it differs from :meth:`cell_of` only for a
+point exactly on a horizontal cell edge, where the collision mask's margin (at least half
+a cell diagonal) makes either neighbour safe.
 
 Worked example: a 3 x 4 grid of 0.5 m cells with ``origin_m = (10, 20)`` (lower-left
-corner) has ``top_y_m = 21.5``; the point (10.6, 21.4) is in row 0, column 1; its
+corner) has its top edge at y = 21.5; the point (10.6, 21.4) is in row 0, column 1; its
 padded frame with ``pad = 2`` puts it at row 2, column 3; its lattice with ``factor = 2``
 is 2 x 2 cells of 1 m, the point in lattice cell (0, 0).
 
@@ -30,6 +37,8 @@ is 2 x 2 cells of 1 m, the point in lattice cell (0, 0).
 >>> frame = GridFrame.of_grid(OccupancyGrid(np.zeros((3, 4), np.uint8), 0.5, (10.0, 20.0)))
 >>> frame.cell_of(10.6, 21.4), frame.padded(2).cell_of(10.6, 21.4), frame.coarsened(2).cell_of(10.6, 21.4)
 ((0, 1), (2, 3), (0, 0))
+>>> frame.cell_of(10.0, 20.0)  # the lower-left corner belongs to the bottom-left cell
+(2, 0)
 """
 
 from __future__ import annotations
@@ -44,32 +53,36 @@ __all__ = ["GridFrame"]
 
 @dataclass(frozen=True)
 class GridFrame:
-    """``rows x cols`` square cells of ``cell_m`` whose top-left corner is (left_x_m, top_y_m)."""
+    """``rows x cols`` square cells of ``cell_m`` whose lower-left corner is (left_x_m, bottom_y_m)."""
 
     left_x_m: float
-    top_y_m: float
+    bottom_y_m: float
     cell_m: float
     rows: int
     cols: int
 
     @classmethod
     def of_grid(cls, grid) -> "GridFrame":
-        """The frame of an ``OccupancyGrid``'s own cells."""
-        cs = float(grid.cell_size_m)
-        return cls(float(grid.origin_m[0]), float(grid.origin_m[1]) + grid.rows * cs, cs, grid.rows, grid.cols)
+        """The frame of an ``OccupancyGrid``'s own cells (``origin_m`` is its lower-left corner)."""
+        return cls(float(grid.origin_m[0]), float(grid.origin_m[1]), float(grid.cell_size_m), grid.rows, grid.cols)
 
     def padded(self, pad: int) -> "GridFrame":
         """The same cells with ``pad`` more on every side."""
         return GridFrame(
-            self.left_x_m - pad * self.cell_m, self.top_y_m + pad * self.cell_m, self.cell_m,
+            self.left_x_m - pad * self.cell_m, self.bottom_y_m - pad * self.cell_m, self.cell_m,
             self.rows + 2 * pad, self.cols + 2 * pad,
         )
 
     def coarsened(self, factor: int) -> "GridFrame":
         """Blocks of ``factor x factor`` cells from the top-left corner (partial blocks at the far edges count)."""
-        return GridFrame(
-            self.left_x_m, self.top_y_m, self.cell_m * factor, -(-self.rows // factor), -(-self.cols // factor)
-        )
+        rows, cols = -(-self.rows // factor), -(-self.cols // factor)
+        cell = self.cell_m * factor
+        return GridFrame(self.left_x_m, self.top_y_m - rows * cell, cell, rows, cols)
+
+    @property
+    def top_y_m(self) -> float:
+        """World y of the top edge of row 0."""
+        return self.bottom_y_m + self.rows * self.cell_m
 
     @property
     def inv_cell(self) -> float:
@@ -81,13 +94,13 @@ class GridFrame:
         return self.rows, self.cols
 
     def cell_of(self, x_m, y_m):
-        """(row, col) of world points, floor semantics; Python ints for scalars, intp arrays otherwise."""
+        """(row, col) of world points; Python ints for scalars, intp arrays otherwise."""
         if isinstance(x_m, (float, int)) and isinstance(y_m, (float, int)):
             return (
-                math.floor((self.top_y_m - y_m) / self.cell_m),
+                self.rows - 1 - math.floor((y_m - self.bottom_y_m) / self.cell_m),
                 math.floor((x_m - self.left_x_m) / self.cell_m),
             )
-        rows = np.floor((self.top_y_m - np.asarray(y_m, dtype=float)) / self.cell_m).astype(np.intp)
+        rows = (self.rows - 1) - np.floor((np.asarray(y_m, dtype=float) - self.bottom_y_m) / self.cell_m).astype(np.intp)
         cols = np.floor((np.asarray(x_m, dtype=float) - self.left_x_m) / self.cell_m).astype(np.intp)
         return rows, cols
 
@@ -98,10 +111,11 @@ class GridFrame:
         """
         inv = 1.0 / self.cell_m
         col = np.asarray(np.floor((np.asarray(x_m, dtype=float) - self.left_x_m) * inv), dtype=np.intp)
-        row = np.asarray(np.floor((self.top_y_m - np.asarray(y_m, dtype=float)) * inv), dtype=np.intp)
+        up = np.asarray(np.floor((np.asarray(y_m, dtype=float) - self.bottom_y_m) * inv), dtype=np.intp)
         # clip with two ufuncs in place (np.clip's wrapper costs more than the work here)
         np.minimum(np.maximum(col, 0, out=col), self.cols - 1, out=col)
-        np.minimum(np.maximum(row, 0, out=row), self.rows - 1, out=row)
+        np.minimum(np.maximum(up, 0, out=up), self.rows - 1, out=up)
+        row = (self.rows - 1) - up
         row *= self.cols
         row += col
         return row[()]
@@ -114,7 +128,7 @@ class GridFrame:
     def centre_y_m(self, rows=None) -> np.ndarray:
         """World y of row centres (all rows by default)."""
         rows = np.arange(self.rows) if rows is None else np.asarray(rows)
-        return self.top_y_m - (rows + 0.5) * self.cell_m
+        return self.bottom_y_m + (self.rows - rows - 0.5) * self.cell_m
 
     def contains_cell(self, row: int, col: int) -> bool:
         return 0 <= row < self.rows and 0 <= col < self.cols

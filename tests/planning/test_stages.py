@@ -36,7 +36,7 @@ def test_frame_agrees_with_the_grid_on_every_cell_corner_and_centre():
 
 
 def test_frame_floors_points_outside_rather_than_truncating():
-    frame = GridFrame(0.0, 10.0, 1.0, 10, 10)
+    frame = GridFrame(0.0, 0.0, 1.0, 10, 10)  # top edge at y = 10
     assert frame.cell_of(-0.5, 10.5) == (-1, -1)  # truncation would say (0, 0)
     rows, cols = frame.cell_of(np.array([-0.5]), np.array([10.5]))
     assert rows[0] == -1 and cols[0] == -1
@@ -44,14 +44,26 @@ def test_frame_floors_points_outside_rather_than_truncating():
     assert frame.flat_of(-0.5, 10.5) == 0 and frame.flat_of(1.5, 2.5) == 7 * 10 + 1  # scalars too
 
 
+def test_cell_edges_belong_where_the_grid_puts_them():
+    """The bottom and left edges of a cell are in it, as ``OccupancyGrid.world_to_cell`` has it."""
+    grid = OccupancyGrid(np.zeros((6, 5), np.uint8), 0.5, (1.0, 2.0))
+    frame = GridFrame.of_grid(grid)
+    edges_x = 1.0 + 0.5 * np.arange(5)
+    edges_y = 2.0 + 0.5 * np.arange(6)
+    x, y = np.meshgrid(edges_x, edges_y)
+    assert np.array_equal(np.stack(frame.cell_of(x.ravel(), y.ravel())), np.stack(grid.world_to_cell(x.ravel(), y.ravel())))
+    assert frame.cell_of(1.0, 2.0) == grid.world_to_cell(1.0, 2.0) == (5, 0)
+
+
 def test_padded_and_coarse_frames_share_world_placement():
-    frame = GridFrame(1.0, 9.0, 0.5, 16, 18)
+    frame = GridFrame(1.0, 1.0, 0.5, 16, 18)  # top edge at y = 9
     padded, coarse = frame.padded(3), frame.coarsened(4)
     x, y = 4.26, 3.1
     r, c = frame.cell_of(x, y)
     assert padded.cell_of(x, y) == (r + 3, c + 3)
     assert coarse.cell_of(x, y) == (r // 4, c // 4)
     assert coarse.shape == (4, 5)  # 18 columns make four whole blocks and a partial one
+    assert coarse.top_y_m == frame.top_y_m
 
 
 # ------------------------------------------------------------------ angles
