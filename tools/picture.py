@@ -20,7 +20,11 @@ gear change            yellow dot      black ring, at the pose where the gear fl
 vehicle outline        dark teal       thin; rectangle footprint, or disc with a heading tick
 start                  green           arrow along the heading, with the vehicle outline
 goal                   magenta         arrow, vehicle outline and the goal tolerance circle
+changed cell           cyan            map, blended: cells whose class changed (replay report)
 =====================  ==============  =======================================================
+
+:func:`plan_picture_image` returns the picture as an array (for a caller that composes
+pictures, e.g. :func:`side_by_side`); :func:`render_plan_picture` writes it as a PNG.
 """
 
 from __future__ import annotations
@@ -44,7 +48,11 @@ __all__ = [
     "REVERSE_BGR",
     "START_BGR",
     "UNKNOWN_BGR",
+    "CHANGED_BGR",
+    "encode_png",
+    "plan_picture_image",
     "render_plan_picture",
+    "side_by_side",
 ]
 
 FREE_BGR = (255, 255, 255)
@@ -57,6 +65,8 @@ GEAR_CHANGE_BGR = (0, 215, 255)  # yellow
 OUTLINE_BGR = (120, 110, 0)  # dark teal
 START_BGR = (0, 160, 0)  # green
 GOAL_BGR = (200, 0, 200)  # magenta
+CHANGED_BGR = (255, 230, 0)  # cyan
+_CHANGED_ALPHA = 0.7  # share of the highlight colour in a changed cell
 
 DEFAULT_GOAL_TOLERANCE_M = 0.2
 """Radius of the goal tolerance circle when the caller gives none (docs/files.md, "Path JSON": 0.2 m)."""
@@ -263,8 +273,8 @@ def _format_m(length_m: float) -> str:
     return f"{length_m:g} m"
 
 
-def _legend_items(inflated) -> list[tuple[str, str]]:
-    return [
+def _legend_items(inflated, changed: bool = False) -> list[tuple[str, str]]:
+    items = [
         ("free", "free"),
         ("occupied", "occupied"),
         ("unknown", "unknown"),
@@ -276,6 +286,9 @@ def _legend_items(inflated) -> list[tuple[str, str]]:
         ("start", "start"),
         ("goal", "goal, tolerance"),
     ]
+    if changed:
+        items.append(("changed", "changed cells"))
+    return items
 
 
 _SWATCH_W = 34
@@ -303,7 +316,8 @@ def _layout_legend(items: list[tuple[str, str]], width_px: int) -> list[list[tup
 def _draw_swatch(image: np.ndarray, key: str, x: int, y_mid: int, line_px: int) -> None:
     x0, x1 = x, x + _SWATCH_W
     box = ((x0 + 4, y_mid - 9), (x1 - 4, y_mid + 9))
-    fills = {"free": FREE_BGR, "occupied": OCCUPIED_BGR, "unknown": UNKNOWN_BGR, "margin": MARGIN_BGR}
+    fills = {"free": FREE_BGR, "occupied": OCCUPIED_BGR, "unknown": UNKNOWN_BGR, "margin": MARGIN_BGR,
+             "changed": CHANGED_BGR}
     if key in fills:
         cv2.rectangle(image, box[0], box[1], fills[key], -1)
         cv2.rectangle(image, box[0], box[1], _FRAME_BGR, 1)
@@ -334,6 +348,7 @@ def render_plan_picture(
     title: str = "",
     notes: Iterable[str] = (),
     goal_tolerance_m: float = DEFAULT_GOAL_TOLERANCE_M,
+    changed_cells: np.ndarray | None = None,
 ) -> Path:
     """Draw the map, the inflated margin, start, goal and (when given) the path as a PNG.
 
@@ -359,6 +374,9 @@ def render_plan_picture(
         just says "no path".
     goal_tolerance_m : float
         Radius of the circle drawn round the goal position.
+    changed_cells : ndarray of bool, shape (rows, cols), optional
+        Cells to highlight (cyan, blended over the map), e.g. those whose class changed
+        since an earlier grid; a legend entry is added when given.
 
     Returns
     -------
@@ -373,6 +391,36 @@ def render_plan_picture(
         When ``start``, ``goal`` or ``poses`` have the wrong shape or non-finite values.
     """
     path = _check_out_path(out_path)
+    image = plan_picture_image(inflated, vehicle, start, goal, poses, title=title, notes=notes,
+                               goal_tolerance_m=goal_tolerance_m, changed_cells=changed_cells)
+    try:
+        path.write_bytes(encode_png(image))
+    except OSError as error:
+        raise PictureError(f"cannot write picture {path}: {error.strerror or error}") from None
+    return path
+
+
+def encode_png(image: np.ndarray) -> bytes:
+    """The bytes of ``image`` (BGR uint8) as a PNG file."""
+    ok, encoded = cv2.imencode(".png", image)
+    if not ok:  # pragma: no cover - OpenCV always encodes a uint8 BGR image
+        raise PictureError("cannot encode the picture as PNG")
+    return encoded.tobytes()
+
+
+def plan_picture_image(
+    inflated,
+    vehicle,
+    start: Sequence[float],
+    goal: Sequence[float],
+    poses: np.ndarray | None = None,
+    *,
+    title: str = "",
+    notes: Iterable[str] = (),
+    goal_tolerance_m: float = DEFAULT_GOAL_TOLERANCE_M,
+    changed_cells: np.ndarray | None = None,
+) -> np.ndarray:
+    """The picture of :func:`render_plan_picture` as a BGR uint8 array, not written anywhere."""
     start = _check_pose(start, "start")
     goal = _check_pose(goal, "goal")
     path_poses = None if poses is None else _check_poses(poses)
@@ -387,7 +435,13 @@ def render_plan_picture(
     grid = inflated.grid
     scale_px = _map_scale_px(grid.rows, grid.cols)
     canvas_w = max(int(round(grid.cols * scale_px)) + 2 * _PAD_PX, _MIN_CANVAS_WIDTH_PX)
-    legend_rows = _layout_legend(_legend_items(inflated), canvas_w - 2 * _PAD_PX - int(_SCALE_BAR_MAX_PX) - 40)
+    changed = None
+    if changed_cells is not None:
+        changed = np.asarray(changed_cells, bool)
+        if changed.shape != (grid.rows, grid.cols):
+            raise ValueError(f"picture changed_cells must have the grid's shape {(grid.rows, grid.cols)}, "
+                             f"got {changed.shape}")
+    legend_rows = _layout_legend(_legend_items(inflated, changed is not None), canvas_w - 2 * _PAD_PX - int(_SCALE_BAR_MAX_PX) - 40)
     top_px = 18 + 36 + (42 if banner else 0) + 30 * len(notes) + 14
     bottom_px = 16 + len(legend_rows) * _ITEM_H + 12 + 18
     canvas = _Canvas(grid, top_px, bottom_px)
@@ -396,6 +450,11 @@ def render_plan_picture(
 
     # Map: cells upscaled as crisp squares, then a thin frame round it.
     raster = _map_raster(inflated, canvas.map_w, canvas.map_h)
+    if changed is not None and changed.any():
+        mask = cv2.resize(changed.astype(np.uint8), (canvas.map_w, canvas.map_h),
+                          interpolation=cv2.INTER_NEAREST).astype(bool)
+        tint = np.array(CHANGED_BGR, np.float64)
+        raster[mask] = np.round(_CHANGED_ALPHA * tint + (1 - _CHANGED_ALPHA) * raster[mask]).astype(np.uint8)
     image[canvas.map_top : canvas.map_top + canvas.map_h, canvas.map_left : canvas.map_left + canvas.map_w] = raster
     cv2.rectangle(
         image,
@@ -467,11 +526,25 @@ def render_plan_picture(
     (tw, _), _ = cv2.getTextSize(label, _FONT, _NOTE_FONT, 2)
     _text(image, label, ((x0 + x1 - tw) // 2, yb + 36), _NOTE_FONT, _TEXT_BGR, 2)
 
-    ok, encoded = cv2.imencode(".png", image)
-    if not ok:  # pragma: no cover - OpenCV always encodes a uint8 BGR image
-        raise PictureError(f"cannot encode picture {path} as PNG")
-    try:
-        path.write_bytes(encoded.tobytes())
-    except OSError as error:
-        raise PictureError(f"cannot write picture {path}: {error.strerror or error}") from None
-    return path
+    return image
+
+
+def side_by_side(images: Sequence[np.ndarray], labels: Sequence[str] = (), gap_px: int = 16) -> np.ndarray:
+    """Pictures next to each other, tops aligned, each under a label band (e.g. "A", "B")."""
+    if not images:
+        raise ValueError("side_by_side needs at least one picture")
+    band_px = 44 if any(labels) else 0
+    height = max(image.shape[0] for image in images) + band_px
+    width = sum(image.shape[1] for image in images) + gap_px * (len(images) - 1)
+    out = np.full((height, width, 3), _BAND_BGR, np.uint8)
+    x = 0
+    for i, image in enumerate(images):
+        out[band_px : band_px + image.shape[0], x : x + image.shape[1]] = image
+        if i < len(labels) and labels[i]:
+            _text(out, _fit_text(labels[i], _TITLE_FONT, 2, image.shape[1] - 2 * _PAD_PX), (_PAD_PX + x, 32),
+                  _TITLE_FONT, _TEXT_BGR, 2)
+        x += image.shape[1]
+        if i < len(images) - 1:
+            out[:, x : x + gap_px] = _FRAME_BGR
+            x += gap_px
+    return out

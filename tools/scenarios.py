@@ -15,6 +15,10 @@ warehouse        80 x 60       rack rows with 4.5 m aisles, a cross aisle, a lon
 enclosed_goal    30 x 30       a goal inside a closed room: no path exists
 ===============  ============  ===========================================================
 
+:func:`loading_yard` is the site of the drive demo (``veer demo``), kept apart from the
+five: a 50 x 34 m yard whose map changes twice (a trailer parks across a passage, a gate
+opens), with a yard tractor of rectangle footprint.
+
 Grids are drawn in cell (image) coordinates with OpenCV on a uint8 mask, row 0 at the
 top; :class:`_Sketch` is the one place here that turns world metres into pixels.
 """
@@ -36,7 +40,9 @@ __all__ = [
     "SCENARIO_NAMES",
     "Scenario",
     "ScenarioError",
+    "DriveSite",
     "build_scenario",
+    "loading_yard",
     "s_corridor_centreline",
     "write_scenario_map",
 ]
@@ -48,7 +54,7 @@ SCENARIO_NAMES = ("open_yard", "parking_bay", "s_corridor", "warehouse", "enclos
 """Names accepted by :func:`build_scenario`, in the order a listing shows them."""
 
 DEMO_SCENARIO = "parking_bay"
-"""The scenario ``veer demo`` shows first: forward drive, a gear change and a reverse into a bay."""
+"""The scenario ``veer demo --scenarios`` shows first: forward drive, a gear change and a reverse into a bay."""
 
 # Shades written to scenario map images; the sidecar thresholds (100, 200) classify them back.
 # Unknown must lie between the thresholds (a shade above free_above reads as free).
@@ -520,3 +526,109 @@ def write_scenario_map(scenario: Scenario, directory: str | Path) -> Path:
     except OSError as error:
         raise ScenarioError(f"cannot write scenario map into {folder}: {error.strerror or error}") from None
     return image_path
+
+
+# ---------------------------------------------------------------------------------------------
+# loading_yard: the site of the drive demo (veer demo); not one of SCENARIO_NAMES
+
+
+@dataclass(frozen=True)
+class DriveSite:
+    """The invented site of ``veer demo``: a map that changes twice while a vehicle drives.
+
+    ``grids`` holds the three stages in order, each with the ``map_id`` a robot would send:
+    ``site`` (the yard; the middle gate between the buildings shut), ``site+truck`` (a
+    trailer parked across the south passage, the route the first plan takes) and
+    ``site+truck+gate_open`` (the middle gate open: a shorter way to the dock).
+    ``start`` is the vehicle parked nose-in in a bay (it must leave in reverse); ``goal``
+    the loading point in the dock recess. ``truck_below_y_m``: the trailer appears once the
+    vehicle, out of its bay and driving forward, is further south than this (bound for the
+    south passage); ``gate_above_y_m``: the gate opens once the vehicle, driving forward
+    west of the buildings, is further north than this (on its way round by the north
+    passage).
+    """
+
+    description: str
+    vehicle: object
+    grids: tuple
+    start: tuple[float, float, float]
+    goal: tuple[float, float, float]
+    truck_below_y_m: float
+    gate_above_y_m: float
+    buildings_x_m: tuple[float, float]
+
+
+_SITE_W_M, _SITE_H_M = 50.0, 34.0
+_SITE_FENCE_M = 0.3
+_SITE_BAY_CENTRES_Y_M = (6.0, 9.6, 13.2)
+_SITE_BAY_DEPTH_M = 6.5
+_SITE_BAY_WALL_M = 0.2
+_SITE_BAY_INNER_M = 3.4
+_SITE_BUILDINGS_X_M = (18.0, 31.0)
+_SITE_SOUTH_PASSAGE_Y_M = (_SITE_FENCE_M, 5.5)
+_SITE_MIDDLE_PASSAGE_Y_M = (15.0, 20.0)
+_SITE_NORTH_PASSAGE_Y_M = (28.5, _SITE_H_M - _SITE_FENCE_M)
+_SITE_GATE_X_M = (24.3, 24.7)
+_SITE_DOCK_X_M = 44.0
+_SITE_RECESS_Y_M = (10.8, 15.2)
+
+
+def _site_vehicle():
+    from veer.planning import Vehicle
+
+    # a small yard tractor: 2.6 m wheelbase, 35 deg steering (3.71 m turn radius), 4.2 x 1.8 m body
+    return Vehicle(wheelbase_m=2.6, max_steer_deg=35.0, radius_m=1.0, length_m=4.2, width_m=1.8,
+                   rear_overhang_m=0.8)
+
+
+def loading_yard() -> DriveSite:
+    """The site of the drive demo (see :class:`DriveSite`); the same grids on every call."""
+    def base() -> _Sketch:
+        sketch = _Sketch(_SITE_W_M, _SITE_H_M)
+        sketch.fence(_SITE_FENCE_M)
+        # three bays on the west wall, open to the east; the outer two hold parked tractors
+        half = _SITE_BAY_INNER_M / 2
+        for k, centre in enumerate(_SITE_BAY_CENTRES_Y_M):
+            sketch.box(_SITE_FENCE_M, centre - half - _SITE_BAY_WALL_M, _SITE_BAY_DEPTH_M, centre - half)
+            sketch.box(_SITE_FENCE_M, centre + half, _SITE_BAY_DEPTH_M, centre + half + _SITE_BAY_WALL_M)
+            if k != 1:
+                sketch.box(0.8, centre - 0.9, 5.0, centre + 0.9)
+        # two buildings in the middle of the yard: passages south, between them (gated) and north
+        x0, x1 = _SITE_BUILDINGS_X_M
+        sketch.box(x0, _SITE_SOUTH_PASSAGE_Y_M[1], x1, _SITE_MIDDLE_PASSAGE_Y_M[0])
+        sketch.box(x0, _SITE_MIDDLE_PASSAGE_Y_M[1], x1, _SITE_NORTH_PASSAGE_Y_M[0])
+        # the loading dock on the east wall: two platforms with a recess between them
+        sketch.box(_SITE_DOCK_X_M, _SITE_FENCE_M, _SITE_W_M, _SITE_RECESS_Y_M[0])
+        sketch.box(_SITE_DOCK_X_M, _SITE_RECESS_Y_M[1], _SITE_W_M, _SITE_H_M)
+        # a few pallet stacks in the open yard, clear of the routes
+        for px, py in ((10.0, 24.0), (12.0, 30.0), (37.0, 24.0), (38.5, 5.0)):
+            sketch.box(px, py, px + 1.2, py + 1.2)
+        return sketch
+
+    def gate(sketch: _Sketch) -> None:
+        sketch.box(_SITE_GATE_X_M[0], _SITE_MIDDLE_PASSAGE_Y_M[0], _SITE_GATE_X_M[1], _SITE_MIDDLE_PASSAGE_Y_M[1])
+
+    def truck(sketch: _Sketch) -> None:
+        # a trailer (2.5 m wide) parked across the south passage, from the fence to the building
+        sketch.box(22.5, _SITE_SOUTH_PASSAGE_Y_M[0], 25.0, _SITE_SOUTH_PASSAGE_Y_M[1])
+
+    first = base()
+    gate(first)
+    second = base()
+    gate(second)
+    truck(second)
+    third = base()
+    truck(third)
+    grids = tuple((map_id, sketch.grid()) for map_id, sketch in
+                  (("site", first), ("site+truck", second), ("site+truck+gate_open", third)))
+    return DriveSite(
+        description="50 x 34 m yard: leave a bay in reverse, cross the yard round two buildings, "
+                    "reach the loading dock",
+        vehicle=_site_vehicle(),
+        grids=grids,
+        start=(4.4, _SITE_BAY_CENTRES_Y_M[1], math.pi),
+        goal=(45.2, sum(_SITE_RECESS_Y_M) / 2, 0.0),
+        truck_below_y_m=8.0,
+        gate_above_y_m=12.0,
+        buildings_x_m=_SITE_BUILDINGS_X_M,
+    )

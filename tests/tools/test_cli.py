@@ -351,7 +351,7 @@ def test_bad_input_in_a_child_process(tmp_path):
 
 def test_demo_writes_pictures_and_paths(capsys, tmp_path):
     out = tmp_path / "demo"
-    code, _, err = _run(capsys, "demo", "--out", str(out))
+    code, _, err = _run(capsys, "demo", "--scenarios", "--out", str(out))
     assert code == 0, err
     names = ("open_yard", "parking_bay", "s_corridor", "warehouse", "enclosed_goal")
     for name in names:
