@@ -31,10 +31,25 @@ def real_number(value: object, field: str, error: type[MapError], where: str = "
     """
     if isinstance(value, bool) or not isinstance(value, numbers.Real):
         raise error(f"{where}{field} must be a number, got {type(value).__name__} {value!r}")
-    number = float(value)
+    try:
+        number = float(value)
+    except OverflowError:  # an int (TOML allows any size) beyond the float range
+        number = math.inf
     if not math.isfinite(number):
-        raise error(f"{where}{field} must be a finite number, got {value!r}")
+        raise error(f"{where}{field} must be a finite number, got {_brief(value)}")
     return number
+
+
+def _brief(value: object, limit: int = 60) -> str:
+    """``repr(value)`` on one line, shortened to ``limit`` characters."""
+    text = " ".join(repr(value).split())
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def path_text(path) -> str:
+    """A name (file, chunk) as it can stand in a one-line message: as typed, or quoted when it holds control characters."""
+    text = str(path)
+    return text if text.isprintable() else repr(text)
 
 
 def positive_number(value: object, field: str, error: type[MapError], where: str = "") -> float:
@@ -65,8 +80,9 @@ def cell_size(value: object, field: str, error: type[MapError], where: str = "")
 
 def point_2d(value: object, field: str, error: type[MapError], where: str = "") -> tuple[float, float]:
     """Return ``value`` (a list or tuple of two finite numbers) as a tuple of floats."""
-    if not isinstance(value, (list, tuple, np.ndarray)) or np.ndim(value) != 1 or len(value) != 2:
-        raise error(f"{where}{field} must be a list of two numbers [x, y] in metres, got {value!r}")
+    flat = isinstance(value, (list, tuple)) or (isinstance(value, np.ndarray) and value.ndim == 1)
+    if not flat or len(value) != 2:
+        raise error(f"{where}{field} must be a list of two numbers [x, y] in metres, got {_brief(value)}")
     x, y = value
     # "+ 0.0" turns -0.0 into 0.0 so equal origins hash alike.
     return (

@@ -267,7 +267,7 @@ def _walk_png_chunks(data: bytes, source: str, colour: int) -> None:
             (crc,) = struct.unpack(">I", data[end - 4 : end])
             if zlib.crc32(view[pos + 4 : end - 4]) != crc:
                 raise MapFormatError(
-                    f"{source}: bad PNG: the checksum (CRC) of a {kind.decode('latin-1')} chunk does not match; "
+                    f"{source}: bad PNG: the checksum (CRC) of a {_checks.path_text(kind.decode('latin-1'))} chunk does not match; "
                     "the file is damaged"
                 )
         seen_idat |= kind == b"IDAT"

@@ -95,15 +95,16 @@ def load_map(
         The image has more than ``max_cells`` pixels.
     """
     path = Path(image_path)
+    shown = _checks.path_text(path)
     max_cells = _checks.cell_count_limit(max_cells)
     try:
         data = path.read_bytes()
     except FileNotFoundError:
-        raise MapFormatError(f"{path}: no such map image; give the path of a PGM or PNG file") from None
+        raise MapFormatError(f"{shown}: no such map image; give the path of a PGM or PNG file") from None
     except IsADirectoryError:
-        raise MapFormatError(f"{path}: is a directory; give the path of a PGM or PNG file") from None
-    except OSError as exc:
-        raise MapFormatError(f"{path}: cannot read the map image ({exc.strerror or exc})") from None
+        raise MapFormatError(f"{shown}: is a directory; give the path of a PGM or PNG file") from None
+    except (OSError, ValueError) as exc:  # ValueError: a NUL byte in the name
+        raise MapFormatError(f"{shown}: cannot read the map image ({getattr(exc, 'strerror', None) or exc})") from None
     sidecar = sidecar_path_for(path)
     settings = read_sidecar(sidecar) if sidecar.is_file() else MapSettings()
     if cell_size_m is not None:
@@ -112,10 +113,10 @@ def load_map(
     if settings.cell_size_m is None:
         found = "has no cell_size_m" if sidecar.is_file() else "does not exist"
         raise MapSettingsError(
-            f"{path}: no cell size: pass a cell size (--cell-size) or write cell_size_m in the sidecar "
-            f"{sidecar} (it {found})"
+            f"{shown}: no cell size: pass a cell size (--cell-size) or write cell_size_m in the sidecar "
+            f"{_checks.path_text(sidecar)} (it {found})"
         )
-    samples, maxval = read_image(data, str(path), max_cells=max_cells)
+    samples, maxval = read_image(data, shown, max_cells=max_cells)
     del data
     return _grid_from_samples(samples, maxval, settings)
 

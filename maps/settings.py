@@ -105,22 +105,23 @@ def read_sidecar(path) -> MapSettings:
         message names the file and the key.
     """
     path = Path(path)
+    shown = _checks.path_text(path)
     try:
         raw = path.read_bytes()
-    except OSError as exc:
-        raise MapSettingsError(f"{path}: cannot read the map sidecar ({exc.strerror or exc})") from None
+    except (OSError, ValueError) as exc:  # ValueError: a NUL byte in the name
+        raise MapSettingsError(f"{shown}: cannot read the map sidecar ({getattr(exc, 'strerror', None) or exc})") from None
     try:
         table = tomllib.loads(raw.decode("utf-8"))
     except UnicodeDecodeError:
-        raise MapSettingsError(f"{path}: the map sidecar is not UTF-8 text; write it as TOML") from None
+        raise MapSettingsError(f"{shown}: the map sidecar is not UTF-8 text; write it as TOML") from None
     except tomllib.TOMLDecodeError as exc:
-        raise MapSettingsError(f"{path}: not valid TOML ({exc})") from None
+        raise MapSettingsError(f"{shown}: not valid TOML ({exc})") from None
     unknown = sorted(set(table) - set(SIDECAR_KEYS))
     if unknown:
         raise MapSettingsError(
-            f"{path}: unknown key {unknown[0]!r} in the map sidecar; accepted keys: {', '.join(SIDECAR_KEYS)}"
+            f"{shown}: unknown key {unknown[0]!r} in the map sidecar; accepted keys: {', '.join(SIDECAR_KEYS)}"
         )
     try:
         return MapSettings(**table)
     except MapSettingsError as exc:
-        raise MapSettingsError(f"{path}: {exc}") from None
+        raise MapSettingsError(f"{shown}: {exc}") from None

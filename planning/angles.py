@@ -15,8 +15,9 @@ _TWO_PI = 2.0 * math.pi
 def wrap_angle(a):
     """Wrap an angle (radians) to [-pi, pi); scalars stay Python floats, arrays stay arrays.
 
-    -pi maps to -pi and +pi maps to -pi, for scalars and arrays alike (a float remainder
-    can round to exactly 2 pi, which is folded back).
+    -pi maps to -pi and +pi maps to -pi, for scalars and arrays alike. The remainder is
+    taken first and pi subtracted after, so huge angles (1e17 rad) wrap to the heading
+    they stand for instead of losing the half turn to rounding.
 
     Examples
     --------
@@ -26,9 +27,9 @@ def wrap_angle(a):
     True
     """
     if isinstance(a, (float, int)):
-        r = (a + _PI) % _TWO_PI - _PI
-        return r - _TWO_PI if r >= _PI else float(r)
+        r = float(a) % _TWO_PI  # exact remainder, then one subtraction: no "+ pi" lost to rounding
+        return r - _TWO_PI if r >= _PI else r
     if np.ndim(a) == 0:
         return wrap_angle(float(a))
-    r = np.mod(np.asarray(a, dtype=float) + _PI, _TWO_PI) - _PI
+    r = np.mod(np.asarray(a, dtype=float), _TWO_PI)
     return np.where(r >= _PI, r - _TWO_PI, r)

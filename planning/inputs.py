@@ -14,7 +14,29 @@ import numpy as np
 
 from veer.planning.errors import PlanningError, PoseError
 
-__all__ = ["pose_argument", "positive_length", "poses_argument"]
+__all__ = ["pose_argument", "positive_length", "poses_argument", "brief", "finite_number"]
+
+
+def brief(value, limit: int = 60) -> str:
+    """``repr(value)`` on one line, shortened to ``limit`` characters: fit for a one-line error."""
+    text = " ".join(repr(value).split())
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def finite_number(value) -> bool:
+    """``math.isfinite(value)``, False (not OverflowError) for an int beyond the float range."""
+    try:
+        return math.isfinite(value)
+    except OverflowError:
+        return False
+
+
+def _number(value) -> float:
+    """``float(value)``; values beyond the float range become inf (then refused as not finite)."""
+    try:
+        return float(value)
+    except OverflowError:
+        return math.inf
 
 
 def pose_argument(value, name: str) -> tuple[float, float, float]:
@@ -27,18 +49,19 @@ def pose_argument(value, name: str) -> tuple[float, float, float]:
     ...
     veer.planning.errors.PoseError: start must be three numbers (x_m, y_m, heading_rad), got (2.0, 5.0)
     """
+    wrong = f"{name} must be three numbers (x_m, y_m, heading_rad), got {brief(value)}"
     if isinstance(value, (str, bytes)) or not hasattr(value, "__len__") or len(value) != 3:
-        raise PoseError(f"{name} must be three numbers (x_m, y_m, heading_rad), got {value!r}")
+        raise PoseError(wrong)
     out = []
     for part in value:
         if isinstance(part, bool):
-            raise PoseError(f"{name} must be three numbers (x_m, y_m, heading_rad), got {value!r}")
+            raise PoseError(wrong)
         try:
-            number = float(part)
+            number = _number(part)
         except (TypeError, ValueError):
-            raise PoseError(f"{name} must be three numbers (x_m, y_m, heading_rad), got {value!r}") from None
+            raise PoseError(wrong) from None
         if not math.isfinite(number):
-            raise PoseError(f"{name} {tuple(value)!r} is not finite; give x_m, y_m, heading_rad as finite numbers")
+            raise PoseError(f"{name} {brief(tuple(value))} is not finite; give x_m, y_m, heading_rad as finite numbers")
         out.append(number)
     return out[0], out[1], out[2]
 
@@ -46,11 +69,11 @@ def pose_argument(value, name: str) -> tuple[float, float, float]:
 def positive_length(value, name: str) -> float:
     """``value`` as a finite number > 0 (metres), or PlanningError naming ``name``."""
     try:
-        number = float(value)
+        number = _number(value)
     except (TypeError, ValueError):
         number = float("nan")
     if isinstance(value, bool) or not (math.isfinite(number) and number > 0.0):
-        raise PlanningError(f"{name} must be a finite number > 0, got {value!r}")
+        raise PlanningError(f"{name} must be a finite number > 0, got {brief(value)}")
     return number
 
 

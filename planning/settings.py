@@ -6,6 +6,7 @@ import math
 from dataclasses import dataclass, fields, replace
 
 from veer.planning.errors import SearchSettingsError
+from veer.planning.inputs import brief, finite_number
 
 __all__ = ["SearchSettings", "DEFAULT_SEARCH_SETTINGS"]
 
@@ -119,8 +120,8 @@ class SearchSettings:
             value = getattr(self, name)
             if value is None and optional:
                 return
-            if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-                raise SearchSettingsError(f"search setting {name} must be a finite number, got {value!r}")
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not finite_number(value):
+                raise SearchSettingsError(f"search setting {name} must be a finite number, got {brief(value)}")
             if not low <= value <= high:
                 raise SearchSettingsError(f"search setting {name} must be in [{low}, {high}], got {value}")
 

@@ -22,8 +22,13 @@ from pathlib import Path
 import numpy as np
 
 from veer.planning.errors import VehicleError
+from veer.planning.inputs import brief, finite_number
 
 __all__ = ["Vehicle", "EXAMPLE_VEHICLE", "load_vehicle", "vehicle_from_mapping"]
+
+
+_MAX_SIZE_M = 1000.0  # no vehicle dimension beyond this: a typo in units, and tables would not fit
+_MAX_TURN_RADIUS_M = 10_000.0  # a steering limit so small that the turn is wider than this is a typo
 
 
 @dataclass(frozen=True)
@@ -61,8 +66,10 @@ class Vehicle:
     def __post_init__(self) -> None:
         def finite(name: str) -> float:
             value = getattr(self, name)
-            if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-                raise VehicleError(f"vehicle {name} must be a finite number, got {value!r}")
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not finite_number(value):
+                raise VehicleError(f"vehicle {name} must be a finite number, got {brief(value)}")
+            if abs(value) > _MAX_SIZE_M and name.endswith("_m"):
+                raise VehicleError(f"vehicle {name} must be at most {_MAX_SIZE_M:g} m, got {brief(value)}; check the units")
             return float(value)
 
         if finite("wheelbase_m") <= 0:
@@ -73,6 +80,13 @@ class Vehicle:
             )
         if finite("radius_m") < 0:
             raise VehicleError(f"vehicle radius_m must be >= 0, got {self.radius_m}")
+        tan_steer = math.tan(math.radians(self.max_steer_deg))
+        turn_radius_m = self.wheelbase_m / tan_steer if tan_steer > 0.0 else math.inf
+        if not turn_radius_m <= _MAX_TURN_RADIUS_M:  # also catches inf and nan
+            raise VehicleError(
+                f"vehicle turns on a circle of radius {turn_radius_m:.3g} m (wheelbase_m / tan(max_steer_deg)); "
+                f"at most {_MAX_TURN_RADIUS_M:g} m is planned for: check wheelbase_m and max_steer_deg"
+            )
         rect = [self.length_m, self.width_m]
         if any(v is not None for v in rect + [self.rear_overhang_m]):
             if self.length_m is None or self.width_m is None:
@@ -178,14 +192,15 @@ def vehicle_from_mapping(values: dict, source: str = "vehicle") -> Vehicle:
 def load_vehicle(path: str | Path) -> Vehicle:
     """Read a vehicle TOML file (docs/files.md, "Vehicle")."""
     path = Path(path)
+    shown = str(path) if str(path).isprintable() else repr(str(path))
     try:
         text = path.read_text(encoding="utf-8")
-    except OSError as error:
-        raise VehicleError(f"cannot read vehicle file {path}: {error.strerror or error}") from None
-    except UnicodeDecodeError:
-        raise VehicleError(f"vehicle file {path} is not UTF-8 text; write it as a TOML file") from None
+    except (OSError, ValueError) as error:  # ValueError: a NUL byte in the name
+        if isinstance(error, UnicodeDecodeError):
+            raise VehicleError(f"vehicle file {shown} is not UTF-8 text; write it as a TOML file") from None
+        raise VehicleError(f"cannot read vehicle file {shown}: {getattr(error, 'strerror', None) or error}") from None
     try:
         values = tomllib.loads(text)
     except tomllib.TOMLDecodeError as error:
-        raise VehicleError(f"vehicle file {path} is not valid TOML: {error}") from None
-    return vehicle_from_mapping(values, source=f"vehicle file {path}")
+        raise VehicleError(f"vehicle file {shown} is not valid TOML: {error}") from None
+    return vehicle_from_mapping(values, source=f"vehicle file {shown}")
