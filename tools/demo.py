@@ -232,6 +232,18 @@ def _node_config(site, log_path: Path):
                       vehicle=site.vehicle, record=RecordSettings(path=str(log_path)), source="veer demo")
 
 
+def _write_node_settings(out_dir: Path, vehicle) -> Path:
+    """DIR/node.toml: the demo's vehicle as a NODE.toml, so a replay of the log plans for the tractor too."""
+    lines = ["# veer demo: the yard tractor of the drive (docs/protocol.md, NODE.toml)", "[vehicle]"]
+    for key in ("wheelbase_m", "max_steer_deg", "radius_m", "length_m", "width_m", "rear_overhang_m"):
+        value = getattr(vehicle, key)
+        if value is not None:
+            lines.append(f"{key} = {float(value)!r}")
+    path = Path(out_dir) / "node.toml"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return path
+
+
 class _Drive:
     """One drive: the node on a thread, a client, the simulated robot and its clock."""
 
@@ -360,6 +372,9 @@ def drive_demo(out_dir, *, speed: float = DEFAULT_SPEED, say=lambda line: None, 
         server.close()
     demo.wall_s = time.monotonic() - wall0
     demo.files.append((log_path, "the node's own recording of the drive (python -m veer.node.recording reads it)"))
+    settings_path = _write_node_settings(demo.out_dir, site.vehicle)
+    demo.files.append((settings_path, f"the tractor as NODE.toml; replay with it: veer replay {log_path} "
+                                      f"--config {settings_path}"))
     _write_pictures(demo)
     if report:
         _write_report(demo, config, say)
