@@ -770,7 +770,7 @@ def cheapest_words(
     by_length = sorted(range(len(candidates)), key=lambda j: candidates[j][0])
     # price never falls below the length in metres, so once the next-shortest word is
     # longer than the count-th cheapest price found, no later word can enter the answer
-    kept: list[tuple[float, int, tuple]] = []  # (price, candidate index, signature), cheapest first
+    kept: list[tuple[float, int]] = []  # (price, candidate index), cheapest first
     for i in by_length:
         unit_length, pat, mags = candidates[i]
         if len(kept) == count and unit_length * r > kept[-1][0]:
@@ -778,20 +778,21 @@ def cheapest_words(
         cost = price(pat, mags)
         if len(kept) == count and cost >= kept[-1][0]:
             continue
-        signature = _signature(pat, mags)
-        if any(signature == other for _, _, other in kept):  # the same curve found by two words
+        # the same curve found by two words has the same price: compare only then
+        if any(abs(cost - other_cost) <= 1e-9 and _signature(pat, mags) == _signature(*candidates[j][1:])
+               for other_cost, j in kept):
             continue
-        kept.append((cost, i, signature))
+        kept.append((cost, i))
         kept.sort(key=lambda item: item[0])
         del kept[count:]
     if with_shortest and count > 1 and by_length:
         # the shortest word sweeps the least ground: second in line when it is not among the cheapest
         i = by_length[0]
         signature = _signature(candidates[i][1], candidates[i][2])
-        if all(signature != other for _, _, other in kept):
-            kept.insert(1, (price(candidates[i][1], candidates[i][2]), i, signature))
+        if all(signature != _signature(*candidates[j][1:]) for _, j in kept):
+            kept.insert(1, (price(candidates[i][1], candidates[i][2]), i))
             del kept[count:]
-    return [(cost, _LazyCurve(candidates[i][1], candidates[i][2], r, reverse)) for cost, i, _ in kept]
+    return [(cost, _LazyCurve(candidates[i][1], candidates[i][2], r, reverse)) for cost, i in kept]
 
 
 def all_curves(start, goal, turn_radius_m, *, reverse: bool = True) -> list[CurvePath]:

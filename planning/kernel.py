@@ -176,7 +176,7 @@ def run_search(
             curves_tried += 1
             # the next-cheapest curves too from the start and near the goal, where they pay
             found = to_goal(x, y, heading, prim_ends[prim_in] if prim_in < n_prims else None,
-                            accept * f - g if expansions == 1 or dist_goal <= near_m else -1.0)
+                            min(accept * f, best_curve_cost) - g if expansions == 1 or dist_goal <= near_m else -1.0)
             if found is not None and g + found[1] < best_curve_cost:
                 best_curve_cost = g + found[1]
                 curve_solutions.append((i, found[0], found[1]))
