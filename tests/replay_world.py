@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from veer.node.recording import LogWriter
+from veer.tools.bench_replay import walled_yard
 
 CELL_M = 0.1
 WIDTH_M, HEIGHT_M = 30.0, 16.0
@@ -30,15 +31,7 @@ _SHADE = {0: 255, 1: 0, 2: 128}  # class -> grey level of a map image (light = f
 
 def classes(boxes_m=()) -> np.ndarray:
     """Cell classes (0 free, 1 occupied) of the yard with walls round it and the given boxes."""
-    rows, cols = round(HEIGHT_M / CELL_M), round(WIDTH_M / CELL_M)
-    out = np.zeros((rows, cols), np.uint8)
-    out[:3, :] = out[-3:, :] = 1
-    out[:, :3] = out[:, -3:] = 1
-    xs = (np.arange(cols) + 0.5) * CELL_M
-    ys = (rows - np.arange(rows) - 0.5) * CELL_M
-    for x0, y0, x1, y1 in boxes_m:
-        out[np.ix_((ys >= y0) & (ys <= y1), (xs >= x0) & (xs <= x1))] = 1
-    return out
+    return walled_yard(WIDTH_M, HEIGHT_M, CELL_M, boxes_m)
 
 
 def grid_message(cells: np.ndarray, map_id) -> dict:

@@ -27,16 +27,24 @@ CELL_M = 0.1
 WIDTH_M, HEIGHT_M = 40.0, 24.0
 
 
-def _classes(walls) -> np.ndarray:
-    rows, cols = round(HEIGHT_M / CELL_M), round(WIDTH_M / CELL_M)
+def walled_yard(width_m: float, height_m: float, cell_m: float, boxes_m=()) -> np.ndarray:
+    """Cell classes (0 free, 1 occupied) of a yard with a wall three cells thick round it and the given boxes.
+
+    ``boxes_m`` are (x0, y0, x1, y1) in metres from the yard's lower-left corner.
+    """
+    rows, cols = round(height_m / cell_m), round(width_m / cell_m)
     out = np.zeros((rows, cols), np.uint8)
     out[:3, :] = out[-3:, :] = 1
     out[:, :3] = out[:, -3:] = 1
-    xs = (np.arange(cols) + 0.5) * CELL_M
-    ys = (rows - np.arange(rows) - 0.5) * CELL_M
-    for x0, y0, x1, y1 in walls:
+    xs = (np.arange(cols) + 0.5) * cell_m
+    ys = (rows - np.arange(rows) - 0.5) * cell_m
+    for x0, y0, x1, y1 in boxes_m:
         out[np.ix_((ys >= y0) & (ys <= y1), (xs >= x0) & (xs <= x1))] = 1
     return out
+
+
+def _classes(walls) -> np.ndarray:
+    return walled_yard(WIDTH_M, HEIGHT_M, CELL_M, walls)
 
 
 def _grid(classes, map_id) -> dict:

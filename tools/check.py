@@ -17,19 +17,19 @@ or run, or a start or goal off the map or in collision).
 
 from __future__ import annotations
 
-import argparse
 import math
 import sys
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from veer.tools.errors import EXIT_BAD_INPUT, EXIT_OK
+
 __all__ = ["Expectations", "Scenario", "ScenarioFileError", "Outcome", "add_arguments", "load_scenario", "check_scenario",
            "run", "main", "SCENARIO_KEYS", "EXPECT_KEYS", "POSE_KEYS"]
 
-EXIT_OK = 0
-EXIT_FAILED = 1
-EXIT_BAD_INPUT = 2
+
+EXIT_FAILED = 1  # a scenario failed its expectations
 
 SCENARIO_KEYS = ("name", "description", "map", "cell_size_m", "vehicle", "reverse", "start", "goal", "expect")
 POSE_KEYS = ("x_m", "y_m", "heading_deg")
@@ -345,24 +345,11 @@ def run(args) -> int:
     return EXIT_FAILED if failed else EXIT_OK
 
 
-class _OneLineParser(argparse.ArgumentParser):
-    """argparse that reports a bad command line in one line (exit 2)."""
-
-    def error(self, message: str) -> None:  # noqa: D401 - argparse hook
-        print(f"{self.prog}: {message} (see '{self.prog} --help')", file=sys.stderr)
-        raise SystemExit(EXIT_BAD_INPUT)
-
-
 def main(argv: list[str] | None = None) -> int:
-    """``python -m veer.tools.check SCENARIO...``, the same as ``veer check``."""
-    parser = _OneLineParser(prog="veer check", description=__doc__,
-                            formatter_class=argparse.RawDescriptionHelpFormatter)
-    add_arguments(parser)
-    try:
-        args = parser.parse_args(argv)
-    except SystemExit as stop:
-        return int(stop.code or 0)
-    return run(args)
+    """``python -m veer.tools.check``: the same as ``veer check``."""
+    from veer.tools.cli import run_subcommand
+
+    return run_subcommand("check", argv)
 
 
 if __name__ == "__main__":  # pragma: no cover

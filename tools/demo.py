@@ -574,24 +574,9 @@ def _pose_text(label: str, pose) -> str:
 
 def main(argv: list[str] | None = None) -> int:
     """``python -m veer.tools.demo``: the same as ``veer demo``."""
-    import argparse
+    from veer.tools.cli import run_subcommand
 
-    class _OneLineParser(argparse.ArgumentParser):
-        def error(self, message: str) -> None:  # noqa: D401 - argparse hook
-            print(f"{self.prog}: {message} (see '{self.prog} --help')", file=sys.stderr)
-            raise SystemExit(2)
-
-    parser = _OneLineParser(prog="veer demo", description=__doc__.split("\n\n")[0])
-    add_arguments(parser)
-    try:
-        args = parser.parse_args(argv)
-    except SystemExit as stop:
-        return int(stop.code or 0)
-    try:
-        return run(args)
-    except UsageError as error:
-        print(f"veer demo: {error}", file=sys.stderr)
-        return 2
+    return run_subcommand("demo", argv)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -317,20 +317,9 @@ def run(args) -> int:
 
 def main(argv: list[str] | None = None) -> int:
     """``python -m veer.tools.record``: the same as ``veer record``."""
-    import argparse
+    from veer.tools.cli import run_subcommand
 
-    class _OneLineParser(argparse.ArgumentParser):
-        def error(self, message: str) -> None:  # noqa: D401 - argparse hook
-            print(f"{self.prog}: {message} (see '{self.prog} --help')", file=sys.stderr)
-            raise SystemExit(EXIT_BAD_INPUT)
-
-    parser = _OneLineParser(prog="veer record", description=__doc__.split("\n\n")[0])
-    add_arguments(parser)
-    try:
-        args = parser.parse_args(argv)
-    except SystemExit as stop:
-        return int(stop.code or 0)
-    return run(args)
+    return run_subcommand("record", argv)
 
 
 if __name__ == "__main__":  # pragma: no cover
