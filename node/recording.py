@@ -232,7 +232,8 @@ class LogWriter:
     path : str or path-like
         The log file. Created (or overwritten) unless ``append`` is true.
     append : bool
-        Add to an existing log (its grid contents are reused) or start one if missing.
+        Add to an existing log or start one if missing. A tail cut off by a crash (an
+        incomplete last record) is cut away first, so the log stays whole.
     fsync_every_records, fsync_every_s : int or float, optional
         Also force the data to the disk (``os.fsync``) after this many records or when
         this many seconds have passed since the last fsync, whichever comes first. Without
@@ -273,10 +274,21 @@ class LogWriter:
         self.records_written = 0
         self.contents_written = 0
         existing = append and self.path.exists() and self.path.stat().st_size > 0
+        whole_bytes = None
         if existing:
-            LogReader(self.path)  # refuses a file that is not a log; this session stores its own grid copies
+            # refuses a file that is not a log; this session stores its own grid copies. A tail
+            # cut off by a crash is dropped first, so appending never turns it into damage mid-file
+            reader = LogReader(self.path)
+            for _ in reader.records(restore_grids=False):
+                pass
+            if reader.skipped_tail_bytes:
+                whole_bytes = self.path.stat().st_size - reader.skipped_tail_bytes
         try:
-            self._file = open(self.path, "ab" if existing else "wb")
+            self._file = open(self.path, "r+b" if existing else "wb")
+            if existing:
+                if whole_bytes is not None:
+                    self._file.truncate(whole_bytes)
+                self._file.seek(0, os.SEEK_END)
             if not existing:
                 self._file.write(_FILE_HEADER.pack(FILE_MAGIC, FORMAT_VERSION, 0))
                 self._file.flush()
