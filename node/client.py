@@ -14,6 +14,14 @@ Inputs go out on a PUB socket (XPUB, so :meth:`NodeClient.connect` can wait unti
 node's SUB has subscribed and the first grid is not lost); outputs arrive on a SUB
 socket; control requests use REQ with a timeout (the socket is rebuilt after a timeout,
 since a REQ socket that missed its reply cannot send again).
+
+With a node that runs CURVE (docs/protocol.md, "Security"), pass the client's secret key
+file and the node's public key file; every socket then authenticates and encrypts::
+
+    NodeClient(secret_key_file="keys/robot1/robot1.key_secret", node_public_key_file="keys/node/node.key")
+
+``inputs`` may be a list of addresses: the input socket connects to each (the node and,
+say, a recorder), and every message goes to all of them.
 """
 
 from __future__ import annotations
@@ -37,6 +45,8 @@ DEFAULT_ADDRESSES = {
 _SHADE_FREE = 254  # grey levels of a map image (contract: light = free, dark = occupied)
 _SHADE_OCCUPIED = 0
 _SHADE_UNKNOWN = 128
+_BACKLOG_MAX = 10_000  # outputs kept aside by wait_for(keep_others=True); the oldest go first
+_STATUS_POLL_S = 0.02  # wait_accepted asks for status at most this often (the node limits requests per second)
 
 
 class NodeTimeout(TimeoutError):
@@ -119,21 +129,34 @@ class NodeClient:
 
     Parameters
     ----------
-    inputs, outputs, control : str
-        The node's addresses (defaults: the node's loopback defaults).
+    inputs : str or list of str
+        The node's input address, or several: the input socket connects to each (ZeroMQ
+        PUB sockets may connect to several endpoints) and every grid and pose goes to all.
+    outputs, control : str
+        The node's output and control addresses (defaults: the node's loopback defaults).
     timeout_s : float
         Default wait of every request and every ``wait_*`` call.
     connect : bool
-        Connect at once (and wait until the node hears us and we hear it).
+        Connect at once (and wait until every input address subscribed and a status arrived).
+    secret_key_file, node_public_key_file : path, optional
+        CURVE: this client's key pair (``NAME.key_secret`` from ``veer keys``) and the
+        node's public key (its ``NAME.key``); both or neither. The node lets the client
+        in only when its public key is in the node's allowed folder.
     """
 
-    def __init__(self, inputs: str = DEFAULT_ADDRESSES["inputs"], outputs: str = DEFAULT_ADDRESSES["outputs"],
-                 control: str = DEFAULT_ADDRESSES["control"], *, timeout_s: float = 10.0, connect: bool = True):
-        self.addresses = {"inputs": inputs, "outputs": outputs, "control": control}
+    def __init__(self, inputs: str | list[str] = DEFAULT_ADDRESSES["inputs"],
+                 outputs: str = DEFAULT_ADDRESSES["outputs"], control: str = DEFAULT_ADDRESSES["control"], *,
+                 timeout_s: float = 10.0, connect: bool = True, secret_key_file=None, node_public_key_file=None):
+        self.inputs = [inputs] if isinstance(inputs, str) else [str(address) for address in inputs]
+        if not self.inputs or not all(isinstance(address, str) and address for address in self.inputs):
+            raise ValueError(f"inputs must be an address or a non-empty list of addresses, got {inputs!r}")
+        self.addresses = {"inputs": inputs if isinstance(inputs, str) else list(self.inputs),
+                          "outputs": outputs, "control": control}
         self.timeout_s = timeout_s
+        self._curve = self._curve_options(secret_key_file, node_public_key_file)
         self.context = zmq.Context()
         self._pub = self._sub = self._req = None
-        self._backlog: deque = deque()
+        self._backlog: deque = deque(maxlen=_BACKLOG_MAX)
         self._map_counter = 0
         if connect:
             try:
@@ -143,28 +166,55 @@ class NodeClient:
                 raise
 
     # ------------------------------------------------------------------ lifecycle
+    @staticmethod
+    def _curve_options(secret_key_file, node_public_key_file) -> list[tuple[int, bytes]]:
+        """Socket options of a CURVE client (libzmq ``zmq_curve(7)``), or none; raises ValueError in one line."""
+        if secret_key_file is None and node_public_key_file is None:
+            return []
+        if secret_key_file is None or node_public_key_file is None:
+            raise ValueError("CURVE needs both secret_key_file (this client's NAME.key_secret) and "
+                             "node_public_key_file (the node's NAME.key); pass both or neither")
+        from .config import read_key_file
+
+        public, secret = read_key_file(secret_key_file, secret=True)
+        node_public, _ = read_key_file(node_public_key_file, secret=False)
+        return [(zmq.CURVE_SERVERKEY, node_public), (zmq.CURVE_PUBLICKEY, public), (zmq.CURVE_SECRETKEY, secret)]
+
+    def _socket(self, kind: int) -> zmq.Socket:
+        sock = self.context.socket(kind)
+        sock.setsockopt(zmq.LINGER, 0)
+        for option, value in self._curve:
+            sock.setsockopt(option, value)
+        return sock
+
     def connect(self, timeout_s: float | None = None) -> None:
-        """Connect all three sockets; wait until the node subscribed to our inputs and a status arrived."""
+        """Connect all three sockets; wait until every input address subscribed and a status arrived."""
         timeout_s = self.timeout_s if timeout_s is None else timeout_s
-        self._pub = self.context.socket(zmq.XPUB)
-        self._pub.setsockopt(zmq.LINGER, 0)
-        self._pub.connect(self.addresses["inputs"])
-        self._sub = self.context.socket(zmq.SUB)
-        self._sub.setsockopt(zmq.LINGER, 0)
+        self._pub = self._socket(zmq.XPUB)
+        self._pub.setsockopt(zmq.XPUB_VERBOSE, 1)  # one subscription message from each receiver, not just the first
+        for address in self.inputs:
+            self._pub.connect(address)
+        self._sub = self._socket(zmq.SUB)
         self._sub.setsockopt(zmq.SUBSCRIBE, b"")
         self._sub.connect(self.addresses["outputs"])
         self._new_req()
         end = time.monotonic() + timeout_s
-        if not self._pub.poll(max(1, int(1000 * (end - time.monotonic())))):
-            raise NodeTimeout(f"the node at {self.addresses['inputs']} did not subscribe within {timeout_s} s; is it running?")
-        self._pub.recv()  # the subscription message
-        self.wait_for("status", timeout_s=max(0.01, end - time.monotonic()))
+        hint = "is it running" + (", and is this client's public key in its allowed folder?" if self._curve else "?")
+        for heard in range(len(self.inputs)):
+            if not self._pub.poll(max(1, int(1000 * (end - time.monotonic())))):
+                raise NodeTimeout(f"{heard} of {len(self.inputs)} input address(es) {', '.join(self.inputs)} "
+                                  f"subscribed within {timeout_s} s; {hint}")
+            self._pub.recv()  # a subscription message
+        try:
+            self.wait_for("status", timeout_s=max(0.01, end - time.monotonic()))
+        except NodeTimeout:
+            raise NodeTimeout(f"no status from the node at {self.addresses['outputs']} within {timeout_s} s; "
+                              f"{hint}") from None
 
     def _new_req(self) -> None:
         if self._req is not None:
             self._req.close(linger=0)
-        self._req = self.context.socket(zmq.REQ)
-        self._req.setsockopt(zmq.LINGER, 0)
+        self._req = self._socket(zmq.REQ)
         self._req.connect(self.addresses["control"])
 
     def close(self) -> None:
@@ -217,7 +267,7 @@ class NodeClient:
             if time.monotonic() >= end:
                 raise NodeTimeout(f"the node did not take in map {map_id!r} / pose {pose} within {timeout_s} s "
                                   f"(status shows map {status['map_id']!r}); look for an event saying why")
-            time.sleep(0.01)
+            time.sleep(_STATUS_POLL_S)
 
     def send_pose(self, x_m: float, y_m: float, heading_rad: float, t_s: float | None = None) -> None:
         t_s = time.time() if t_s is None else t_s
@@ -283,7 +333,7 @@ class NodeClient:
         kinds = (kind,) if isinstance(kind, str) else tuple(kind)
         timeout_s = self.timeout_s if timeout_s is None else timeout_s
         end = time.monotonic() + timeout_s
-        kept = deque()
+        kept = deque(maxlen=_BACKLOG_MAX)
         try:
             while self._backlog:
                 topic, message = self._backlog.popleft()

@@ -19,9 +19,14 @@ from veer.planning import Planner
 
 from .jobs import Job, JobResult, run_job
 
-__all__ = ["PlanWorker"]
+__all__ = ["PlanWorker", "MAX_QUEUED_JOBS"]
 
 log = logging.getLogger("veer.node")
+
+MAX_QUEUED_JOBS = 4
+"""Bound of the job and result queues. The node runs one job at a time (a new one starts
+only after the last one's result was collected), so one job and the stop marker is the
+most they ever hold; the bound turns a bug into a refused job instead of growing memory."""
 
 
 class PlanWorker:
@@ -41,8 +46,8 @@ class PlanWorker:
         self.planner = planner
         self._context = context
         self._wake_address = wake_address
-        self._jobs: queue.Queue = queue.Queue()
-        self.results: queue.Queue[JobResult] = queue.Queue()
+        self._jobs: queue.Queue = queue.Queue(maxsize=MAX_QUEUED_JOBS)
+        self.results: queue.Queue[JobResult] = queue.Queue(maxsize=MAX_QUEUED_JOBS)
         self._cancel: dict[int, threading.Event] = {}
         self._lock = threading.Lock()
         self._stop = threading.Event()
@@ -51,10 +56,17 @@ class PlanWorker:
     def begin(self) -> None:
         self._thread.start()
 
-    def start(self, job: Job) -> None:
+    def start(self, job: Job) -> bool:
+        """Queue ``job``; False (and nothing queued) when the queue is full, which the node reports."""
         with self._lock:
             self._cancel[job.job_id] = threading.Event()
-        self._jobs.put(job)
+        try:
+            self._jobs.put_nowait(job)
+        except queue.Full:
+            with self._lock:
+                self._cancel.pop(job.job_id, None)
+            return False
+        return True
 
     def cancel(self, job_id: int) -> None:
         with self._lock:
@@ -68,7 +80,10 @@ class PlanWorker:
         with self._lock:
             for event in self._cancel.values():
                 event.set()
-        self._jobs.put(None)
+        try:
+            self._jobs.put_nowait(None)
+        except queue.Full:  # the thread sees the stop flag after its current job
+            pass
         self._thread.join(timeout_s)
 
     @property
@@ -81,7 +96,10 @@ class PlanWorker:
         wake.connect(self._wake_address)
         try:
             while not self._stop.is_set():
-                job = self._jobs.get()
+                try:
+                    job = self._jobs.get(timeout=0.2)
+                except queue.Empty:
+                    continue
                 if job is None:
                     break
                 with self._lock:
@@ -89,7 +107,12 @@ class PlanWorker:
                 result = run_job(self.planner, job, cancel)
                 with self._lock:
                     self._cancel.pop(job.job_id, None)
-                self.results.put(result)
+                while not self._stop.is_set():  # bounded queue: wait for the loop to collect
+                    try:
+                        self.results.put(result, timeout=0.2)
+                        break
+                    except queue.Full:
+                        continue
                 try:
                     wake.send(b"", zmq.NOBLOCK)
                 except zmq.ZMQError:  # the loop is gone or busy: it drains the queue anyway

@@ -3,10 +3,12 @@
 Subcommands (``veer SUBCOMMAND --help`` for each):
 
   plan     plan once on a map image and write the path JSON (and a picture)
-  demo     plan the built-in scenarios and write maps, paths and pictures
+  demo     drive a simulated tractor with the node and write a replay report (--scenarios: five plans)
   check    plan scenario files and compare each result with its expectations
   node     run the ZeroMQ planner node
-  replay   replay a recorded log offline           (not built yet in this version)
+  replay   replay recorded logs offline and write a browsable report (or compare two settings)
+  record   record what a running node sees and says into a log
+  keys     write a CURVE key pair for the node or a client (veer keys DIR)
 
 Exit codes: 0 done (a path was found), 1 valid request but no path, 2 bad input.
 """
@@ -20,16 +22,11 @@ import sys
 
 from veer.tools.errors import EXIT_BAD_INPUT, EXIT_OK, UsageError, bad_input_errors
 
-__all__ = ["main", "build_parser", "SUBCOMMANDS"]
+__all__ = ["main", "build_parser", "run_subcommand", "SUBCOMMANDS"]
 
-SUBCOMMANDS = ("plan", "demo", "check", "node")
+SUBCOMMANDS = ("plan", "demo", "check", "node", "replay", "record", "keys")
 """Subcommand modules under ``veer.tools``: each has ``add_arguments(parser)``, ``run(args) -> int``
 and a docstring whose first line is the one-line help and whole text the description."""
-
-_NOT_BUILT = {
-    "replay": ("replay a recorded log offline (not built yet in this version)", ("log",), ("--config", "--out")),
-}
-
 
 class _Parser(argparse.ArgumentParser):
     """argparse that reports a bad command line in one line instead of usage + error."""
@@ -43,7 +40,7 @@ def _command_module(name: str):
 
 
 def build_parser() -> argparse.ArgumentParser:
-    """The ``veer`` parser with one sub-parser per entry of :data:`SUBCOMMANDS` (and the stubs)."""
+    """The ``veer`` parser with one sub-parser per entry of :data:`SUBCOMMANDS`."""
     parser = _Parser(
         prog="veer",
         description=__doc__.split("\n\n")[0],
@@ -60,12 +57,6 @@ def build_parser() -> argparse.ArgumentParser:
             sub.add_parser(name, help=summary[:1].lower() + summary[1:], description=doc,
                            formatter_class=argparse.RawDescriptionHelpFormatter)
         )
-    for name, (summary, positionals, options) in _NOT_BUILT.items():
-        stub = sub.add_parser(name, help=summary, description=summary[:1].upper() + summary[1:] + ".")
-        for positional in positionals:
-            stub.add_argument(positional, metavar=positional.upper())
-        for option in options:
-            stub.add_argument(option)
     return parser
 
 
@@ -85,17 +76,16 @@ def main(argv: list[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return EXIT_OK
-    if args.command in _NOT_BUILT:
-        print(
-            f"veer {args.command}: not built yet in this version; 'veer plan' plans once on a map image",
-            file=sys.stderr,
-        )
-        return EXIT_BAD_INPUT
     try:
         return _command_module(args.command).run(args)
     except bad_input_errors() as error:
         print(f"veer {args.command}: {error}", file=sys.stderr)
         return EXIT_BAD_INPUT
+
+
+def run_subcommand(name: str, argv: list[str] | None = None) -> int:
+    """``python -m veer.tools.NAME [ARGS]``: exactly ``veer NAME [ARGS]`` (same parser, errors, logging)."""
+    return main([name, *(sys.argv[1:] if argv is None else argv)])
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -19,10 +19,10 @@ import signal
 import sys
 import threading
 
+from veer.tools.errors import EXIT_BAD_INPUT, EXIT_OK
+
 __all__ = ["add_arguments", "run"]
 
-EXIT_OK = 0
-EXIT_BAD_INPUT = 2
 
 log = logging.getLogger("veer.node")
 
@@ -82,11 +82,9 @@ def run(args) -> int:
 
 def main(argv: list[str] | None = None) -> int:
     """``python -m veer.tools.node``: the same as ``veer node``."""
-    import argparse
+    from veer.tools.cli import run_subcommand
 
-    parser = argparse.ArgumentParser(prog="veer node", description=__doc__.split("\n\n")[0])
-    add_arguments(parser)
-    return run(parser.parse_args(argv))
+    return run_subcommand("node", argv)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -9,6 +9,12 @@ socket. The protocol is in docs/protocol.md; this script imports nothing from ve
     python tools/node_example.py                  # a synthetic 40 m x 30 m yard
     python tools/node_example.py --map yard.png --cell-size 0.1 --start 3 3 0 --goal 30 20 90
     python tools/node_example.py --wall           # then drop a wall across the path and wait for the replan
+    python tools/node_example.py --key keys/robot1/robot1.key_secret --node-key keys/node/node.key   # CURVE
+
+With a node that runs CURVE (docs/protocol.md, "Security"), --key is this client's key
+file (NAME.key_secret from `veer keys DIR`; its public NAME.key must be in the node's
+allowed folder) and --node-key the node's public key file; every socket then
+authenticates and encrypts (ZeroMQ RFC 26/CurveZMQ, libzmq zmq_curve(7)).
 
 Exit codes: 0 a path was received, 1 the node answered no_path, 2 no answer or bad input.
 """
@@ -78,6 +84,25 @@ def grid_from_file(path: Path, cell_size_m: float | None) -> dict:
             "origin_m": origin, "encoding": "png" if data[:1] == b"\x89" else "pgm", "cells": data, **extra}
 
 
+def curve_options(key_file: Path | None, node_key_file: Path | None) -> list[tuple[int, bytes]]:
+    """Socket options of a CURVE client from two key files (ZeroMQ certificate text), or none."""
+    if key_file is None and node_key_file is None:
+        return []
+    if key_file is None or node_key_file is None:
+        raise ValueError("CURVE needs both --key (this client's NAME.key_secret) and --node-key (the node's NAME.key)")
+    from zmq.auth import load_certificate
+
+    try:
+        public, secret = load_certificate(key_file)
+        node_public, _ = load_certificate(node_key_file)
+    except (OSError, ValueError):
+        raise ValueError(f"cannot read the key files {key_file} and {node_key_file}; write them with "
+                         f"`veer keys DIR`") from None
+    if secret is None:
+        raise ValueError(f"{key_file} holds no secret key; pass the NAME.key_secret file as --key")
+    return [(zmq.CURVE_SERVERKEY, node_public), (zmq.CURVE_PUBLICKEY, public), (zmq.CURVE_SECRETKEY, secret)]
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--inputs", default="tcp://127.0.0.1:7401")
@@ -89,7 +114,14 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--goal", nargs=3, type=float, default=[35.0, 15.0, 0.0], metavar=("X", "Y", "HEADING_DEG"))
     parser.add_argument("--wall", action="store_true", help="synthetic yard: then add a wall and wait for the replan")
     parser.add_argument("--timeout", type=float, default=15.0, help="seconds to wait for each answer")
+    parser.add_argument("--key", type=Path, help="CURVE: this client's secret key file (NAME.key_secret)")
+    parser.add_argument("--node-key", type=Path, help="CURVE: the node's public key file (NAME.key)")
     args = parser.parse_args(argv)
+    try:
+        curve = curve_options(args.key, args.node_key)
+    except ValueError as exc:
+        print(f"node_example: {exc}", file=sys.stderr)
+        return 2
 
     context = zmq.Context()
     inputs = context.socket(zmq.XPUB)  # XPUB: we see the node's subscription, so no grid is sent into the void
@@ -97,6 +129,8 @@ def main(argv: list[str] | None = None) -> int:
     control = context.socket(zmq.REQ)
     for sock in (inputs, outputs, control):
         sock.setsockopt(zmq.LINGER, 0)
+        for option, value in curve:  # before connect: options act on later connections
+            sock.setsockopt(option, value)
     outputs.setsockopt(zmq.SUBSCRIBE, b"")
     inputs.connect(args.inputs)
     outputs.connect(args.outputs)
@@ -136,7 +170,8 @@ def main(argv: list[str] | None = None) -> int:
 
     try:
         if not inputs.poll(timeout_ms):
-            raise TimeoutError(f"the node did not subscribe on {args.inputs}; is `veer node` running?")
+            raise TimeoutError(f"the node did not subscribe on {args.inputs}; is `veer node` running"
+                               f"{' and is our public key in its allowed folder' if curve else ''}?")
         inputs.recv()  # the node's subscription
         print("node status:", request({"op": "status"}).get("state"))
         if args.map:
