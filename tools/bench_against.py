@@ -12,7 +12,7 @@ gives the median of each side and the ratio new / old, with the 5 % allowance fo
 Usage::
 
     python -m veer.tools.bench_against HEAD~1 [--repeat 7] [--scenarios open_yard warehouse]
-    python -m veer.tools.bench_plan --against HEAD~1      # the same table after the usual ones
+    python -m veer.tools.bench_plan --against HEAD~1      # the same table after the usual ones (bench_plan --against)
 """
 
 from __future__ import annotations

@@ -604,6 +604,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", metavar="TABLE.md", help="also write the tables to this file")
     parser.add_argument("--scenarios", nargs="+", choices=SCENARIO_NAMES, default=list(SCENARIO_NAMES),
                         help="scenarios to run (default: all)")
+    parser.add_argument("--against", metavar="REV",
+                        help="also plan the scenarios with git revision REV (checked out aside) beside this tree")
     parser.add_argument("--large-size", type=int, default=LARGE_SIZE,
                         help=f"edge in cells of the memory benchmark map (default {LARGE_SIZE}; 0 skips it)")
     args = parser.parse_args(argv)
@@ -684,6 +686,12 @@ def main(argv: list[str] | None = None) -> int:
     calibration = bookkeeping_rate()
     _progress(f"bookkeeping-only loop: {_rate(calibration)}")
     report = format_report(machine, args.repeat, args.plain_repeat, build_s, results, best, rates, large, calibration)
+    if args.against:
+        from veer.tools.bench_against import compare_with_revision, format_comparison
+
+        rows = compare_with_revision(args.against, args.scenarios, max(args.repeat, 3), progress=_progress)
+        report += (f"\n{args.against} against this tree, one run (each side in a child process, medians of "
+                   f"`plan_s`):\n\n" + format_comparison(args.against, rows))
     _progress(f"done in {time.perf_counter() - t_all:.1f} s")
     sys.stdout.write(report)
     if out_path is not None:
