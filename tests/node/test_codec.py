@@ -63,7 +63,7 @@ def test_a_pose_field_that_is_no_finite_number_is_refused(value):
     [
         ([b"pose"], "bad_frames"),
         ([b"pose", pack(POSE), b""], "bad_frames"),
-        ([b"odom", pack(POSE)], "unknown_topic"),
+        ([b"wheel_speeds", pack(POSE)], "unknown_topic"),
         ([b"pose", b"\xc1"], "bad_msgpack"),  # source: msgpack spec, 0xc1 is "never used"
         ([b"pose", pack(POSE) + b"\x00"], "bad_msgpack"),
         ([b"pose", pack([1, 2])], "bad_message"),
