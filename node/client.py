@@ -42,7 +42,7 @@ DEFAULT_ADDRESSES = {
     "control": "tcp://127.0.0.1:7403",
 }
 
-_SHADE_FREE = 254  # grey levels of a map image (contract: light = free, dark = occupied)
+_SHADE_FREE = 255  # grey levels of a map image (docs/files.md: light = free, dark = occupied)
 _SHADE_OCCUPIED = 0
 _SHADE_UNKNOWN = 128
 _BACKLOG_MAX = 10_000  # outputs kept aside by wait_for(keep_others=True); the oldest go first

@@ -1,6 +1,6 @@
 """The socket loop of the node: bind, poll, drain inputs, answer control, publish, stop.
 
-Three sockets (contract section 3): SUB for grids and poses, PUB for paths, status and
+Three sockets (docs/protocol.md): SUB for grids and poses, PUB for paths, status and
 events, REP for control requests. One loop polls them and the worker's wake-up socket,
 feeds :class:`~veer.node.core.NodeCore` and carries out its actions. Planning runs on
 the worker thread (:mod:`veer.node.worker`), so replies and the status heartbeat keep

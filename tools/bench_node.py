@@ -43,7 +43,7 @@ import numpy as np
 __all__ = ["main"]
 
 CELL_M = 0.1
-FREE, OCCUPIED = 254, 0
+FREE, OCCUPIED = 255, 0
 
 
 def _free_port() -> int:

@@ -93,7 +93,7 @@ FORWARD_START_HEADING_DEG = 45.0
 LARGE_SIZE = 2000
 LARGE_CELL_SIZE_M = 0.1
 LARGE_SEED = 7
-LARGE_FLOOR, LARGE_OBSTACLE = 254, 0
+LARGE_FLOOR, LARGE_OBSTACLE = 255, 0
 #: The example rectangle: the example vehicle's wheelbase and steering, a 3.2 x 1.6 m body.
 EXAMPLE_RECTANGLE = Vehicle(
     wheelbase_m=EXAMPLE_VEHICLE.wheelbase_m, max_steer_deg=EXAMPLE_VEHICLE.max_steer_deg,
@@ -294,7 +294,7 @@ def build_large_map(size: int = LARGE_SIZE, *, cell_size_m: float = LARGE_CELL_S
     Returns
     -------
     shades : ndarray (size, size) uint8
-        254 floor, 0 obstacle, row 0 at the top.
+        255 floor, 0 obstacle, row 0 at the top.
     start, goal : tuple of float
         (x_m, y_m, heading_rad).
     """

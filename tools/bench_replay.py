@@ -48,7 +48,7 @@ def _classes(walls) -> np.ndarray:
 
 
 def _grid(classes, map_id) -> dict:
-    shades = np.where(classes == 1, 0, 254).astype(np.uint8)
+    shades = np.where(classes == 1, 0, 255).astype(np.uint8)
     return {"v": 1, "kind": "grid", "map_id": map_id, "rows": int(shades.shape[0]), "cols": int(shades.shape[1]),
             "cell_size_m": CELL_M, "origin_m": [0.0, 0.0], "encoding": "raw", "cells": shades.tobytes()}
 

@@ -32,7 +32,7 @@ from pathlib import Path
 import msgpack
 import zmq
 
-FREE, OCCUPIED = 254, 0  # grey levels of a map image: light = free, dark = occupied
+FREE, OCCUPIED = 255, 0  # grey levels of a map image: light = free, dark = occupied
 
 
 def synthetic_yard(width_m: float, height_m: float, cell_m: float, wall: bool) -> tuple[int, int, bytes]:

@@ -51,7 +51,7 @@ __all__ = ["NodeProcess", "NodeLink", "SoakWorld", "Mover", "SimulatedRobot", "m
 
 CELL_M = 0.1
 WIDTH_M, HEIGHT_M = 40.0, 30.0
-FREE_SHADE, OCCUPIED_SHADE = 254, 0  # grey levels of a map image: light = free, dark = occupied
+FREE_SHADE, OCCUPIED_SHADE = 255, 0  # grey levels of a map image: light = free, dark = occupied
 FIXED_BOXES_M = ((11.0, 3.0, 13.0, 9.0), (27.0, 21.0, 29.0, 27.0))  # (x0, y0, x1, y1)
 MOVER_X_M = (19.3, 20.7)  # the moving box spans these x ...
 MOVER_HALF_HEIGHT_M = 2.0  # ... and 4 m in y

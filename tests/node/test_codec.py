@@ -47,14 +47,14 @@ def code_of(frames, **limits) -> str:
 
 def test_a_pose_decodes_and_integers_count_as_floats():
     assert decode_input([b"pose", pack(POSE)], **LIMITS) == PoseInput(1.5, -2.0, 0.5, 12.0)
-    # contract: any msgpack integer is accepted where a float is expected (2.0 is often written as 2)
+    # docs/protocol.md: any msgpack integer is accepted where a float is expected (2.0 is often written as 2)
     pose = decode_input([b"pose", pack({**POSE, "x_m": 2, "t_s": 0})], **LIMITS)
     assert pose.x_m == 2.0 and isinstance(pose.x_m, float)
 
 
 @pytest.mark.parametrize("value", [True, "1.0", None, [1.0], math.nan, math.inf, -math.inf])
 def test_a_pose_field_that_is_no_finite_number_is_refused(value):
-    # contract: booleans are not numbers; NaN and infinities are out of range
+    # docs/protocol.md: booleans are not numbers; NaN and infinities are out of range
     assert code_of([b"pose", pack({**POSE, "heading_rad": value})]) == "bad_field"
 
 
@@ -85,7 +85,7 @@ def test_a_message_over_the_byte_limit_is_refused_before_decoding():
 
 def test_a_raw_grid_decodes_to_the_classes_of_its_shades():
     shades = np.full((3, 4), 254, np.uint8)
-    shades[0, 1] = 0  # dark: occupied; mid grey: unknown (contract, "Map image")
+    shades[0, 1] = 0  # dark: occupied; mid grey: unknown (docs/files.md, "Map image")
     shades[2, 3] = 150
     checked = decode_input([b"grid", pack(grid_message(shades))], **LIMITS)
     assert isinstance(checked, GridInput) and checked.grid is None and checked.map_id == 7

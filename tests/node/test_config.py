@@ -11,11 +11,11 @@ from veer.planning import EXAMPLE_VEHICLE, SearchSettings
 def test_no_file_means_every_default():
     config = load_config(None)
     assert config == NodeConfig()
-    # contract, section 3: default addresses, loopback only
+    # docs/protocol.md, "Sockets": default addresses, loopback only
     assert (config.sockets.inputs, config.sockets.outputs, config.sockets.control) == (
         "tcp://127.0.0.1:7401", "tcp://127.0.0.1:7402", "tcp://127.0.0.1:7403")
     assert config.vehicle == EXAMPLE_VEHICLE and config.search == SearchSettings()
-    assert config.status_interval_s <= 1.0  # contract: status at least once a second
+    assert config.status_interval_s <= 1.0  # docs/protocol.md: a status at least once a second
 
 
 def test_a_full_file_is_read(tmp_path):

@@ -265,7 +265,7 @@ def test_status_comes_at_the_configured_interval(driver, world):
     # interval 0.2 s: one status per 4 ticks (the first at once)
     assert 24 <= len(driver.statuses) <= 26
     body = driver.statuses[-1]
-    assert {"state", "map_id", "goal_id", "path_seq", "last_plan_s"} <= set(body)  # contract fields
+    assert {"state", "map_id", "goal_id", "path_seq", "last_plan_s"} <= set(body)  # docs/protocol.md, "status"
 
 
 def test_rejected_inputs_become_events_and_keep_the_state(driver, world):

@@ -90,7 +90,7 @@ def test_rectangle_in_a_gap_narrower_than_the_circles(geo):
 def test_outside_of_the_map_is_blocked(geo):
     grid = geo.open_grid(10.0, 10.0)
     checker = FootprintChecker(grid, EXAMPLE_VEHICLE, sample_step_m=SAMPLE_STEP_M)
-    # contract: everything outside the image is blocked, so the disc must keep 1 m from the edge
+    # docs/files.md: everything outside the image is blocked, so the disc must keep 1 m from the edge
     assert checker.poses_clear([5.0], [5.0], [0.0])[0]
     for x, y in [(0.9, 5.0), (5.0, 9.2), (-3.0, 5.0), (5.0, 14.0), (9.95, 9.95)]:
         assert not checker.poses_clear([x], [y], [0.0])[0], (x, y)

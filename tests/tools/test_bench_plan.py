@@ -55,7 +55,7 @@ def test_plan_once_on_an_open_grid():
     # common practice
     assert outcome.length_m == pytest.approx(20.0, abs=0.2)
     assert outcome.reverse_m == 0 and outcome.gear_changes == 0
-    assert outcome.final_poses >= math.ceil(20.0 / 0.25) + 1  # contract: poses at most 0.25 m apart
+    assert outcome.final_poses >= math.ceil(20.0 / 0.25) + 1  # docs/files.md: poses at most 0.25 m apart
     assert outcome.overhead == outcome.expansions / outcome.final_poses
     assert outcome.plan_s > 0 and outcome.rate_per_s > 0
 
