@@ -129,6 +129,3 @@ class GridFrame:
         """World y of row centres (all rows by default)."""
         rows = np.arange(self.rows) if rows is None else np.asarray(rows)
         return self.bottom_y_m + (self.rows - rows - 0.5) * self.cell_m
-
-    def contains_cell(self, row: int, col: int) -> bool:
-        return 0 <= row < self.rows and 0 <= col < self.cols
