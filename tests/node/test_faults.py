@@ -271,6 +271,7 @@ def test_half_a_multipart_control_request_gets_an_answer_or_is_dropped_and_the_n
     try:
         request = context.socket(zmq.REQ)
         request.setsockopt(zmq.LINGER, 0)
+        request.setsockopt(zmq.SNDTIMEO, int(1000 * WAIT_S))  # bounded, like every wait here
         request.connect(control)
         request.send_multipart([_packed({"v": 1, "op": "status"}), b"extra"])  # two frames
         assert request.poll(int(1000 * WAIT_S))

@@ -209,6 +209,7 @@ def _intruder(context, e, curve_options):
     for name, kind in (("inputs", zmq.PUB), ("outputs", zmq.SUB), ("control", zmq.REQ)):
         sock = context.socket(kind)
         sock.setsockopt(zmq.LINGER, 0)
+        sock.setsockopt(zmq.SNDTIMEO, 1000)  # a refused REQ never gets a pipe: its send must not block forever
         for option, value in curve_options:
             sock.setsockopt(option, value)
         if kind == zmq.SUB:
@@ -243,8 +244,11 @@ def test_an_allowed_client_plans_and_others_get_nothing_through(run_node, world,
             blocked = world.with_boxes(world.free_classes(), [(20.0, 0.0, 20.3, 30.0)])
             grid = {"v": 1, "kind": "grid", "map_id": f"intruder {case}", "rows": 300, "cols": 400,
                     "cell_size_m": world.CELL_M, "origin_m": [0.0, 0.0], "encoding": "raw",
-                    "cells": np.where(blocked == 1, 0, 254).astype(np.uint8).tobytes()}
-            intruder["control"].send(msgpack.packb({"v": 1, "op": "cancel"}))
+                    "cells": np.where(blocked == 1, 0, 255).astype(np.uint8).tobytes()}
+            try:
+                intruder["control"].send(msgpack.packb({"v": 1, "op": "cancel"}))
+            except zmq.Again:
+                pass  # no pipe to the node at all: the request cannot even leave, let alone be answered
             end = time.monotonic() + REFUSED_WAIT_S
             while time.monotonic() < end:  # bounded: keeps offering a grid while the node publishes status
                 intruder["inputs"].send_multipart([b"grid", msgpack.packb(grid, use_bin_type=True)])
