@@ -280,8 +280,15 @@ class NodeClient:
         """Send one control request (a dict, or raw bytes) and return the answer as it is."""
         timeout_s = self.timeout_s if timeout_s is None else timeout_s
         payload = message if isinstance(message, bytes) else msgpack.packb(message, use_bin_type=True)
-        self._req.send(payload)
-        if not self._req.poll(max(1, int(1000 * timeout_s))):
+        wait_ms = max(1, int(1000 * timeout_s))
+        # a REQ socket with no pipe to the node (not up yet, or refused by CURVE) blocks in send
+        self._req.setsockopt(zmq.SNDTIMEO, wait_ms)
+        try:
+            self._req.send(payload)
+        except zmq.Again:
+            self._new_req()
+            raise NodeTimeout(f"could not reach the node at {self.addresses['control']} within {timeout_s} s") from None
+        if not self._req.poll(wait_ms):
             self._new_req()
             raise NodeTimeout(f"no answer from the node at {self.addresses['control']} within {timeout_s} s")
         return msgpack.unpackb(self._req.recv(), raw=False)
