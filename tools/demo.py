@@ -36,7 +36,7 @@ from pathlib import Path
 
 import numpy as np
 
-from veer.tools.errors import EXIT_NO_PATH, EXIT_OK, UsageError
+from veer.tools.errors import EXIT_NO_PATH, EXIT_OK, UsageError, number_flag
 
 __all__ = ["DriveDemo", "DriveFailed", "Route", "add_arguments", "drive_demo", "run", "run_scenarios"]
 
@@ -57,22 +57,11 @@ def add_arguments(parser) -> None:
     """Add the ``veer demo`` arguments to an argparse parser."""
     parser.add_argument("--out", default="veer-demo", metavar="DIR",
                         help="folder for the log, the report and pictures (created if missing; default ./veer-demo)")
-    parser.add_argument("--speed", type=_speed, default=DEFAULT_SPEED, metavar="X",
+    parser.add_argument("--speed", type=number_flag("a speed-up", low=0.1, high=1000.0),
+                        default=DEFAULT_SPEED, metavar="X",
                         help=f"simulated seconds per real second (default {DEFAULT_SPEED:g})")
     parser.add_argument("--scenarios", action="store_true",
                         help="plan the five built-in scenarios instead and write maps, paths and pictures")
-
-
-def _speed(text: str) -> float:
-    import argparse
-
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not math.isfinite(value) or not 0.1 <= value <= 1000:
-        raise argparse.ArgumentTypeError(f"expected a speed-up between 0.1 and 1000, got {text!r}")
-    return value
 
 
 def run(args) -> int:
@@ -387,6 +376,17 @@ def drive_demo(out_dir, *, speed: float = DEFAULT_SPEED, say=lambda line: None, 
     return demo
 
 
+def _change_map(drive: _Drive, demo: DriveDemo, name: str, what: str, say) -> dict:
+    """Send the map ``name``, wait for the node's answer (a path or a path_kept event), follow a new path."""
+    drive.send_grid(name)
+    say(f"  t={drive.sim_s:5.1f} s  map {name}: {what}")
+    answer = drive.wait_reaction(name)
+    demo.map_changes.append((drive.sim_s, name, _what(answer)))
+    if answer["kind"] == "path":
+        drive.take(answer)
+    return answer
+
+
 def _drive(drive: _Drive, site, names, client) -> None:
     demo, say = drive.demo, drive.say
     drive.send_grid(names[0])
@@ -405,23 +405,13 @@ def _drive(drive: _Drive, site, names, client) -> None:
         if stage == 0 and gear > 0 and y < site.truck_below_y_m:
             stage = 1
             since = time.monotonic()
-            drive.send_grid(names[1])
-            say(f"  t={drive.sim_s:5.1f} s  map {names[1]}: a trailer parks across the south passage ahead")
-            answer = drive.wait_reaction(names[1])
-            demo.map_changes.append((drive.sim_s, names[1], _what(answer)))
-            if answer["kind"] == "path":
-                drive.take(answer)
+            _change_map(drive, demo, names[1], "a trailer parks across the south passage ahead", say)
             drive.hold_clock(since)
         elif stage == 1 and gear > 0 and y > site.gate_above_y_m and x < site.buildings_x_m[0]:
             stage = 2
             since = time.monotonic()
-            drive.send_grid(names[2])
-            say(f"  t={drive.sim_s:5.1f} s  map {names[2]}: the gate between the buildings opens")
-            answer = drive.wait_reaction(names[2])
-            demo.map_changes.append((drive.sim_s, names[2], _what(answer)))
-            if answer["kind"] == "path":
-                drive.take(answer)
-            else:
+            answer = _change_map(drive, demo, names[2], "the gate between the buildings opens", say)
+            if answer["kind"] != "path":
                 say(f"  t={drive.sim_s:5.1f} s  the node keeps path {answer['path_seq']} (event path_kept: "
                     f"{answer['detail']}); the dispatcher sends the goal again to take the shorter way")
                 path = drive.set_goal()

@@ -27,7 +27,7 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from veer.tools.errors import EXIT_BAD_INPUT, EXIT_OK
+from veer.tools.errors import EXIT_BAD_INPUT, EXIT_OK, number_flag
 
 __all__ = ["DEFAULT_OUTPUTS", "DEFAULT_TAP", "Recorder", "RecordError", "add_arguments", "main", "run"]
 
@@ -253,6 +253,9 @@ class Recorder:
             self._context = None
 
 
+_SECONDS = number_flag("a number of seconds", low=0.0, low_open=True)
+
+
 def add_arguments(parser) -> None:
     """Add the ``veer record`` arguments to an argparse parser."""
     parser.add_argument("log", metavar="OUT.log", help="the recording log to write (docs/files.md, 'Recording log')")
@@ -261,24 +264,11 @@ def add_arguments(parser) -> None:
     parser.add_argument("--tap", default=DEFAULT_TAP, metavar="ADDRESS",
                         help=f"address the input tap binds; connect the robots' publishers here as well as to "
                              f"the node (default {DEFAULT_TAP}; a port of * picks a free one)")
-    parser.add_argument("--duration-s", type=_seconds, default=None, metavar="S",
+    parser.add_argument("--duration-s", type=_SECONDS, default=None, metavar="S",
                         help="stop after this many seconds (default: until Ctrl-C or SIGTERM)")
     parser.add_argument("--append", action="store_true", help="add to an existing log instead of starting a new one")
-    parser.add_argument("--fsync-every-s", type=_seconds, default=None, metavar="S",
+    parser.add_argument("--fsync-every-s", type=_SECONDS, default=None, metavar="S",
                         help="also force the log to the disk this often (default: flush each record to the OS only)")
-
-
-def _seconds(text: str) -> float:
-    import argparse
-    import math
-
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from None
-    if not math.isfinite(value) or value <= 0:
-        raise argparse.ArgumentTypeError(f"expected a number of seconds > 0, got {text!r}")
-    return value
 
 
 def run(args) -> int:

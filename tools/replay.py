@@ -36,7 +36,7 @@ import sys
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
-from veer.tools.errors import EXIT_BAD_INPUT, EXIT_NO_PATH, EXIT_OK, UsageError
+from veer.tools.errors import EXIT_BAD_INPUT, EXIT_NO_PATH, EXIT_OK, UsageError, number_flag
 
 __all__ = [
     "CSV_COLUMNS",
@@ -809,6 +809,9 @@ def replay_report(logs, out_dir, config=None, *, label: str = "defaults",
 # ---------------------------------------------------------------------- command line
 
 
+_RATIO = number_flag("a number (inf switches the check off)", low=0.0, allow_inf=True)
+
+
 def _positive_int(text: str) -> int:
     import argparse
 
@@ -818,18 +821,6 @@ def _positive_int(text: str) -> int:
         raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
     if value < 1:
         raise argparse.ArgumentTypeError(f"must be 1 or more, got {value}")
-    return value
-
-
-def _limit(text: str) -> float:
-    import argparse
-
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a number (inf switches the check off)") from None
-    if math.isnan(value) or value < 0:
-        raise argparse.ArgumentTypeError(f"must be a number >= 0 (or inf), got {text}")
     return value
 
 
@@ -854,13 +845,13 @@ def add_arguments(parser) -> None:
                         help="compare: side-by-side pictures of the K largest differences (default %(default)s)")
     parser.add_argument("--max-lost", type=int, default=defaults.max_lost, metavar="N",
                         help="compare: replans where A found a path and B none, allowed (default %(default)s)")
-    parser.add_argument("--max-length-ratio", type=_limit, default=defaults.max_length_ratio, metavar="R",
+    parser.add_argument("--max-length-ratio", type=_RATIO, default=defaults.max_length_ratio, metavar="R",
                         help="compare: total length B / A over replans both found (default %(default)s)")
-    parser.add_argument("--max-reverse-ratio", type=_limit, default=defaults.max_reverse_ratio, metavar="R",
+    parser.add_argument("--max-reverse-ratio", type=_RATIO, default=defaults.max_reverse_ratio, metavar="R",
                         help="compare: total reverse metres B / A (default %(default)s)")
-    parser.add_argument("--max-gear-change-ratio", type=_limit, default=defaults.max_gear_change_ratio,
+    parser.add_argument("--max-gear-change-ratio", type=_RATIO, default=defaults.max_gear_change_ratio,
                         metavar="R", help="compare: total gear changes B / A (default %(default)s)")
-    parser.add_argument("--max-plan-time-ratio", type=_limit, default=defaults.max_plan_time_ratio, metavar="R",
+    parser.add_argument("--max-plan-time-ratio", type=_RATIO, default=defaults.max_plan_time_ratio, metavar="R",
                         help="compare: total plan time B / A; depends on the machine (default %(default)s; "
                              "inf: off)")
 
